@@ -238,8 +238,6 @@ def _check_sites(cell: CellModel) -> None:
 
 
 def _membrane_arrays(grid: Grid, membrane: Membrane, membrane_placements) -> dict:
-    from .profiles import evaluate
-
     values = {name: membrane.per_compartment(name, grid.swc_type) for name in _MEMBRANE_PARAMETERS
               if name != "spine_factor"}
     values["spine_factor"] = np.ones(grid.n_compartments)
@@ -262,6 +260,7 @@ def _membrane_arrays(grid: Grid, membrane: Membrane, membrane_placements) -> dic
         prev |= mask
         owner.setdefault(mp.parameter, []).append(k)
         idx = np.nonzero(mask)[0]
+        from .profiles import evaluate
         values[mp.parameter][idx] = evaluate(mp.value, grid, idx)
     for name, arr in values.items():
         bad = np.nonzero(~np.isfinite(arr) | ((arr <= 0) if name in (
@@ -275,6 +274,8 @@ def _membrane_arrays(grid: Grid, membrane: Membrane, membrane_placements) -> dic
 
 
 def _channel_blocks(grid: Grid, placements, spine_factor: np.ndarray) -> tuple[ChannelBlock, ...]:
+    if not placements:
+        return ()
     from .profiles import evaluate
 
     by_channel: dict[str, list] = {}

@@ -1,0 +1,118 @@
+"""The implicit tree solver.
+
+:func:`simulate` integrates a :class:`~cabletree.cell.CellModel` and returns the
+recorded potentials and the final state.  Backends share the step schedule
+(:mod:`cabletree.solver.plan`) and differ only in how they step:
+
+- ``"reference"``: numpy, vectorised over compartments (:mod:`.reference`);
+- ``"compiled"``: the numba kernel (:mod:`.compiled`), when available;
+- ``"auto"``: the compiled kernel if numba imports, else the reference.
+"""
+
+from __future__ import annotations
+
+import time as _time
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..cell import CellModel
+from ..errors import SolverError
+from .plan import METHODS, RunSettings, SolverState, check_state, make_schedule, resting_state
+
+__all__ = ["simulate", "RunOutput", "RunSettings", "SolverState", "METHODS", "BACKENDS",
+           "resting_state", "available_backends"]
+
+BACKENDS = ("auto", "reference", "compiled")
+
+
+@dataclass(frozen=True, eq=False)
+class RunOutput:
+    """What a run produced.
+
+    Attributes
+    ----------
+    time_ms : ndarray, shape (n_records,)
+    v_mV : ndarray, shape (n_records, n_sites)
+        Membrane potential at the recording sites.
+    sites : tuple of Site
+    final_state : SolverState
+    settings : RunSettings
+    backend : str
+        Backend that ran.
+    wall_time_s : float
+        Time spent stepping, s.
+    """
+
+    time_ms: np.ndarray
+    v_mV: np.ndarray
+    sites: tuple
+    final_state: SolverState
+    settings: RunSettings
+    backend: str
+    wall_time_s: float
+
+
+def available_backends() -> tuple[str, ...]:
+    """Backends usable on this machine."""
+    out = ["reference"]
+    try:
+        from . import compiled  # noqa: F401
+        out.append("compiled")
+    except ImportError:
+        pass
+    return tuple(out)
+
+
+def _stepper(cell: CellModel, backend: str):
+    if backend not in BACKENDS:
+        raise SolverError(f"unknown backend {backend!r}; expected one of {list(BACKENDS)}")
+    if backend == "auto":
+        backend = "compiled" if "compiled" in available_backends() else "reference"
+    if backend == "compiled":
+        try:
+            from .compiled import CompiledStepper
+        except ImportError as exc:
+            raise SolverError(f"the compiled backend is not available here ({exc}); use "
+                              "backend='reference'") from exc
+        return CompiledStepper(cell), backend
+    from .reference import ReferenceStepper
+    return ReferenceStepper(cell), backend
+
+
+def simulate(cell: CellModel, settings: RunSettings, *, initial_state: SolverState | None = None,
+             backend: str = "auto") -> RunOutput:
+    """Integrate a cell model in time.
+
+    Parameters
+    ----------
+    cell : CellModel
+        The assembled cell, with its inputs and recording sites.
+    settings : RunSettings
+        Duration, time step, method and recording interval.
+    initial_state : SolverState, optional
+        Continue from this state (e.g. a saved steady state); by default the run
+        starts at ``settings.v_init_mV`` with gates at steady state at t = 0.
+    backend : {"auto", "reference", "compiled"}
+        Which implementation steps the equations (they agree to round-off).
+
+    Returns
+    -------
+    RunOutput
+
+    Raises
+    ------
+    NumericalInstabilityError
+        When the potential becomes NaN or leaves ±``settings.max_abs_v_mV``; the
+        message names the time and the compartment.
+    """
+    state = initial_state if initial_state is not None else resting_state(cell, settings.v_init_mV)
+    check_state(cell, state)
+    sched = make_schedule(cell, settings, t0_ms=state.time_ms)
+    stepper, used = _stepper(cell, backend)
+    record_index = np.array([s.compartment for s in cell.recording_sites], dtype=np.int64)
+    start = _time.perf_counter()
+    records, final = stepper.run(settings, sched, state, record_index)
+    wall = _time.perf_counter() - start
+    times = state.time_ms + settings.dt_ms * sched.record_every * np.arange(records.shape[0])
+    return RunOutput(times, records, tuple(cell.recording_sites), final, settings, used, wall)
