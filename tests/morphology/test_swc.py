@@ -85,6 +85,8 @@ def test_noncontiguous_ids_are_kept():
 
 ERRORS = [
     ("1 1 0 0 0 5 -1\n2 3 abc 0 0 1 1\n", r"<string>, line 2: field 'x' is not a number: 'abc'"),
+    ("1 1 0 0 0 5 -1\n2 3 1_0 0 0 1 1\n", r"line 2: field 'x' is not a number: '1_0'"),
+    ("1 1 0 0 0 5 -1\n2 3 1 0 0 1 0x1\n", r"line 2: field 'parent' is not a number: '0x1'"),
     ("1 1 0 0 0 5 -1\n\n2 3 1 0 0 1\n", r"line 3: expected 7 fields .* found 6"),
     ("1 1 0 0 0 5 -1\n2 3 1 0 0 1 1 7\n", r"line 2: expected 7 fields .* found 8"),
     ("1 1 0 0 0 5 -1\n2 3 1 0 0 1 1\n2 3 2 0 0 1 1\n", r"line 3: duplicate sample id 2 \(already defined on line 2\)"),

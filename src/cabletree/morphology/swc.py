@@ -53,12 +53,25 @@ class SwcWarning(UserWarning):
     """Something unusual but acceptable was found in an SWC file."""
 
 
+def _field_error(rows: list[list[str]], numbers: list[int], source: str) -> SwcFormatError:
+    """The error for the first field that is not a number."""
+    for fields, number in zip(rows, numbers):
+        for name, field in zip(_FIELD_NAMES, fields):
+            try:
+                if "_" in field:  # float() would accept digit separators
+                    raise ValueError(field)
+                float(field)
+            except ValueError:
+                return SwcFormatError(f"field {name!r} is not a number: {field!r}", source, number)
+    return SwcFormatError("a field is not a number", source)  # pragma: no cover
+
+
 def _parse_lines(text: str, source: str) -> tuple[np.ndarray, np.ndarray]:
     """Rows of seven floats and their 1-based line numbers."""
-    rows: list[list[float]] = []
-    line_numbers: list[int] = []
+    rows: list[list[str]] = []
+    numbers: list[int] = []
     for number, raw in enumerate(_LINE_BREAK.split(text), start=1):
-        fields = raw.split("#", 1)[0].split()
+        fields = (raw.split("#", 1)[0] if "#" in raw else raw).split()
         if not fields:
             continue
         if len(fields) != 7:
@@ -67,21 +80,17 @@ def _parse_lines(text: str, source: str) -> tuple[np.ndarray, np.ndarray]:
                 f"{raw.strip()!r}",
                 source, number,
             )
-        values = []
-        for name, field in zip(_FIELD_NAMES, fields):
-            try:
-                if "_" in field:
-                    raise ValueError(field)
-                values.append(float(field))
-            except ValueError:
-                raise SwcFormatError(
-                    f"field {name!r} is not a number: {field!r}", source, number
-                ) from None
-        rows.append(values)
-        line_numbers.append(number)
+        rows.append(fields)
+        numbers.append(number)
     if not rows:
         raise SwcFormatError("no samples found (only comments or blank lines)", source)
-    return np.array(rows, dtype=float), np.array(line_numbers, dtype=np.int64)
+    if "_" in text and any("_" in f for fields in rows for f in fields):
+        raise _field_error(rows, numbers, source)
+    try:
+        data = np.array(rows, dtype=float)
+    except ValueError:
+        raise _field_error(rows, numbers, source) from None
+    return data, np.array(numbers, dtype=np.int64)
 
 
 def _check_integers(data: np.ndarray, lines: np.ndarray, source: str) -> None:
