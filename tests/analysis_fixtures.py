@@ -106,7 +106,7 @@ def make_results(time_ms: np.ndarray, traces: Mapping[str, np.ndarray],
                     "parent", "area_um2")
     }
     comp_vars["gmax_ka_distal"] = ("compartment", comp["gmax_ka_distal"],
-                                   {"units": "S/cm2", "long_name": "distal A-type K gmax"})
+                                   {"units": "S cm-2", "long_name": "distal A-type K gmax"})
     ds = xr.Dataset(
         {"v": (("time", "site"), v, {"units": "mV", "long_name": "membrane potential"}),
          **comp_vars},

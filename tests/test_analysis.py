@@ -305,3 +305,8 @@ def test_features_table_appends_units_to_bare_names():
     f = xr.Dataset({"amplitude": ("site", [1.5], {"units": "mV", "long_name": "a"})},
                    coords={"site": ["soma"]})
     assert analysis.features_table(f).splitlines()[0] == "site,amplitude_mV"
+    # CF-style unit strings as written by cabletree.results ("S cm-2") become name suffixes
+    g = xr.Dataset({"gmax": ("compartment", [0.01], {"units": "S cm-2", "long_name": "g"}),
+                    "rate_per_ms": ("compartment", [2.0], {"units": "ms-1", "long_name": "r"})},
+                   coords={"compartment": [0]})
+    assert analysis.features_table(g).splitlines()[0] == "compartment,gmax_S_per_cm2,rate_per_ms"

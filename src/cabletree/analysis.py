@@ -67,14 +67,22 @@ def _local_maxima(v: np.ndarray) -> np.ndarray:
     return (starts[k] + ends[k]) // 2
 
 
-def _prominence(v: np.ndarray, peak: int) -> float:
-    """Topographic prominence of the sample ``peak`` of ``v`` (see the module notes)."""
+def _is_prominent(v: list[float], peak: int, prominence_mV: float) -> bool:
+    """Whether sample ``peak`` has topographic prominence ≥ ``prominence_mV`` (module notes).
+
+    The prominence is at least ``p`` exactly when, on each side, the trace falls to
+    ``v[peak] − p`` or below before it rises above ``v[peak]`` (or ends).  Each side is
+    scanned only that far, so the cost scales with the spike width, not the trace length.
+    """
     height = v[peak]
-    higher_left = np.flatnonzero(v[:peak] > height)
-    start = higher_left[-1] + 1 if higher_left.size else 0
-    higher_right = np.flatnonzero(v[peak + 1:] > height)
-    stop = peak + 1 + higher_right[0] if higher_right.size else len(v)
-    return float(height - max(v[start:peak + 1].min(), v[peak:stop].min()))
+    level = height - prominence_mV
+    for step in (-1, 1):
+        i = peak + step
+        while 0 <= i < len(v) and v[i] <= height and v[i] > level:
+            i += step
+        if not (0 <= i < len(v)) or v[i] > height:
+            return False
+    return True
 
 
 def _enforce_min_interval(peaks: np.ndarray, v: np.ndarray, t: np.ndarray,
@@ -100,7 +108,9 @@ def _spike_peak_indices(v: np.ndarray, t: np.ndarray, threshold_mV: float,
                         min_interval_ms: float, prominence_mV: float) -> np.ndarray:
     candidates = _local_maxima(v)
     candidates = candidates[v[candidates] >= threshold_mV]
-    candidates = np.asarray([p for p in candidates if _prominence(v, p) >= prominence_mV], dtype=int)
+    values = v.tolist()
+    candidates = np.asarray([p for p in candidates if _is_prominent(values, int(p), prominence_mV)],
+                            dtype=int)
     return _enforce_min_interval(candidates, v, t, min_interval_ms)
 
 
@@ -752,10 +762,39 @@ def membrane_time_constant_ms(ds: xr.Dataset, site: str, fit_window_ms: tuple[fl
 _NO_UNITS = ("", "1", "dimensionless")
 
 
+def _unit_parts(units: str) -> list[tuple[str, int]]:
+    """Split a CF-style unit string into (symbol, exponent) pairs.
+
+    Accepts the space-separated CF form (``"S cm-2"``, ``"ms-1"``, ``"um2"``) and the slash
+    form (``"S/cm2"``); ``"µ"`` is read as ``"u"``.
+    """
+    text = units.replace("µ", "u").strip()
+    numerator, _, denominator = text.partition("/")
+    parts = []
+    for sign, group in ((1, numerator), (-1, denominator)):
+        for token in group.split():
+            symbol = token.rstrip("-0123456789")
+            power = token[len(symbol):]
+            parts.append((symbol, sign * (int(power) if power not in ("", "-") else 1)))
+    return parts
+
+
+def _units_token(units: str) -> str:
+    """Units as a name suffix: ``"S cm-2"`` → ``"S_per_cm2"``, ``"ms-1"`` → ``"per_ms"``."""
+    parts = _unit_parts(units)
+    def piece(symbol: str, power: int) -> str:
+        return symbol + (str(abs(power)) if abs(power) != 1 else "")
+    up = [piece(s, p) for s, p in parts if p > 0]
+    down = [piece(s, p) for s, p in parts if p < 0]
+    return "_".join(up + (["per"] + down if down else []))
+
+
 def _column_header(name: str, units: str) -> str:
     """Column name with its units appended unless the name already ends with them."""
-    token = units.replace("µ", "u").replace("/", "_per_").replace(" ", "")
-    if units in _NO_UNITS or name.endswith("_" + token):
+    if units in _NO_UNITS:
+        return name
+    token = _units_token(units)
+    if name.endswith("_" + token):
         return name
     return f"{name}_{token}"
 

@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from cabletree.analysis import _write_atomically
+from cabletree.analysis import _unit_parts, _write_atomically
 from cabletree.errors import ResultsError
 
 __all__ = [
@@ -62,10 +62,17 @@ def _label_with_units(attrs: Mapping[str, Any], fallback: str) -> str:
 
 
 def _pretty_units(units: str) -> str:
-    """CF-style unit text for display: ``um`` → µm, ``cm2`` → cm², ``um2`` → µm²."""
-    for plain, pretty in (("um2", "µm²"), ("cm2", "cm²"), ("um", "µm")):
-        units = units.replace(plain, pretty)
-    return units
+    """CF-style units for display: ``"S cm-2"`` → ``"S/cm²"``, ``"um"`` → ``"µm"``."""
+    superscript = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+    def piece(symbol: str, power: int) -> str:
+        symbol = "µ" + symbol[1:] if symbol.startswith("u") and len(symbol) > 1 else symbol
+        return symbol + (str(abs(power)).translate(superscript) if abs(power) != 1 else "")
+
+    parts = _unit_parts(units)
+    up = " ".join(piece(s, p) for s, p in parts if p > 0) or "1"
+    down = " ".join(piece(s, p) for s, p in parts if p < 0)
+    return f"{up}/{down}" if down else up
 
 
 def site_label(name: str, swc_type: int, path_distance_um: float) -> str:
