@@ -19,7 +19,11 @@ The soma is one compartment: a sphere of the radius given by the morphology
 it), area ``4 π r²``.  A neurite leaving the soma starts at the sphere's surface
 on the straight line from the centre to its first sample outside the sphere, with
 the radius of that sample (not the soma's); samples inside the sphere are part of
-the soma.  A branch of zero length is merged into the node it starts from.
+the soma.  Likewise a branch leaving a branch point starts there with the radius
+of its own first sample (a cylinder up to that sample), not the parent's radius,
+so a thin oblique leaving a thick trunk is not given a wide cone.  Within a
+branch, consecutive samples are joined by frusta.  A branch of zero length is
+merged into the node it starts from.
 
 Ordering
 --------
@@ -346,7 +350,7 @@ def build_grid(morph: Morphology, rule: SpacingRule | None = None, *,
         else:
             start_node = end_node[int(b.start_sample)]
             pts = np.vstack([xyz[b.start_sample], xyz[samples]])
-            rad = np.concatenate([[radius[b.start_sample]], radius[samples]])
+            rad = np.concatenate([[radius[samples[0]]], radius[samples]])
             pd0 = sample_pd[b.start_sample]
         if np.any(~(rad > 0)):
             bad = samples[np.nonzero(~(rad[-len(samples):] > 0))[0]]

@@ -57,7 +57,7 @@ def available_backends() -> tuple[str, ...]:
     """Backends usable on this machine."""
     out = ["reference"]
     try:
-        from . import compiled  # noqa: F401
+        from .compiled import CompiledStepper  # noqa: F401
         out.append("compiled")
     except ImportError:
         pass
