@@ -235,7 +235,8 @@ def random_tree(n_branches: int, seed: int, *, n_stems: int = 3, samples_per_bra
     seed : int
         Seed of the random generator (the same seed gives the same tree).
     n_stems : int
-        Branches leaving the soma (reduced to ``n_branches`` if larger).
+        Branches leaving the soma (reduced to ``n_branches`` if larger, raised by one
+        when ``n_branches - n_stems == 1``, since one split cannot make one branch).
     samples_per_branch : int
         Samples per branch (>= 1).
     mean_branch_length_um : float
