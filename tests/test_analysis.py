@@ -310,3 +310,38 @@ def test_features_table_appends_units_to_bare_names():
                     "rate_per_ms": ("compartment", [2.0], {"units": "ms-1", "long_name": "r"})},
                    coords={"compartment": [0]})
     assert analysis.features_table(g).splitlines()[0] == "compartment,gmax_S_per_cm2,rate_per_ms"
+
+
+# ---------------------------------------------------------------- on a simulated cell
+
+
+@pytest.mark.slow
+def test_passive_features_on_simulated_ball_and_stick():
+    # End-to-end: a simulated passive ball-and-stick measured with the trace-based functions,
+    # against cable theory. R_N = 1/(G_S + G_D), G_S = πD²/Rm, G_D = tanh(L)/R∞ (Rall 1959;
+    # REFERENCES §1.2); slowest decay τ0 = Rm·Cm for a uniform membrane (Rall 1969; §1.6).
+    from cabletree.cell import CurrentInjection, Membrane, build_cell
+    from cabletree.inputs import StepCurrent
+    from cabletree.morphology.synthetic import ball_and_stick
+    from cabletree.results import make_dataset
+    from cabletree.sites import soma_site
+    from cabletree.solver import simulate
+    from cabletree.solver.plan import RunSettings
+
+    rm_ohm_cm2, ri_ohm_cm, d_cm, soma_cm, length_cm = 20000.0, 150.0, 2e-4, 20e-4, 200e-4
+    membrane = Membrane(cm_uF_per_cm2=1.0, axial_resistivity_ohm_cm=ri_ohm_cm,
+                        leak_S_per_cm2=1.0 / rm_ohm_cm2, leak_reversal_mV=-65.0)
+    grid = build_cell(ball_and_stick(), membrane=membrane).grid
+    cell = build_cell(grid, membrane=membrane,
+                      injections=[CurrentInjection(soma_site(grid), StepCurrent(0.05, 10.0, 300.0))])
+    ds = make_dataset(cell, simulate(cell, RunSettings(t_stop_ms=400.0, dt_ms=0.025),
+                                      backend="reference"))
+    lam = math.sqrt(rm_ohm_cm2 * d_cm / (4.0 * ri_ohm_cm))
+    r_inf = 4.0 * ri_ohm_cm * lam / (math.pi * d_cm ** 2)
+    r_n = 1e-6 / (math.tanh(length_cm / lam) / r_inf + math.pi * soma_cm ** 2 / rm_ohm_cm2)
+    assert r_n == pytest.approx(803.62, abs=0.01)
+    measured = analysis.input_resistance_MOhm(ds, "soma", 0.05, t_before_ms=9.9,
+                                              t_steady_ms=309.9)
+    assert measured == pytest.approx(r_n, rel=1e-3)
+    assert analysis.membrane_time_constant_ms(ds, "soma", (330.0, 400.0)) == pytest.approx(
+        rm_ohm_cm2 * 1e-3, rel=1e-3)  # Rm·Cm = 20000 Ω·cm² × 1 µF/cm² = 20 ms
