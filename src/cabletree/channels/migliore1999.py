@@ -106,21 +106,26 @@ def thermal_factor_per_mV(celsius):
     return 1e-3 * _FARADAY / (_GAS_CONSTANT * (273.16 + celsius))
 
 
-def _ka_channel(name, v_half_n_mV, zeta0, gmn, a0n, where):
-    """One A-type kinetic type: activation n and inactivation l, EK = -90 mV."""
+def _ka_exponent(v, celsius, shift_mV, v_half_n_mV, zeta0):
+    """``ζn (V' - V½n) k(T)`` with ``V' = V - shift_mV`` (dimensionless)."""
+    vs = v - shift_mV
+    zeta = zeta0 - 1.0 / (1.0 + np.exp((vs + 40.0) / 5.0))
+    return zeta * (vs - v_half_n_mV) * thermal_factor_per_mV(celsius)
 
-    def exponent(v, celsius, p):
-        # ζn (V' - V½n) k(T) with V' = V - shift_mV
-        vs = v - p.shift_mV
-        zeta = zeta0 - 1.0 / (1.0 + np.exp((vs + 40.0) / 5.0))
-        return zeta * (vs - p.v_half_n_mV) * thermal_factor_per_mV(celsius)
+
+def _ka_channel(name, v_half_n_mV, zeta0, gmn, a0n, where):
+    """One A-type kinetic type: activation n and inactivation l, EK = -90 mV.
+
+    The rate functions capture only numbers and call only module-level functions,
+    so a compiler can treat them like the other channels' rate functions.
+    """
 
     def n_inf(v, celsius, p):
-        return 1.0 / (1.0 + np.exp(exponent(v, celsius, p)))
+        return 1.0 / (1.0 + np.exp(_ka_exponent(v, celsius, p.shift_mV, p.v_half_n_mV, zeta0)))
 
     def n_tau(v, celsius, p):
         # unscaled tau; the floor is multiplied by qt so that tau / qt >= floor
-        x = exponent(v, celsius, p)
+        x = _ka_exponent(v, celsius, p.shift_mV, p.v_half_n_mV, zeta0)
         qt = np.exp(np.log(5.0) * (celsius - 24.0) / 10.0)
         return np.maximum(np.exp(gmn * x) / (a0n * (1.0 + np.exp(x))), _KA_TAU_N_FLOOR_MS * qt)
 
