@@ -157,7 +157,7 @@ class _Ctx:
 
 
 def _suggest(name: str, known) -> str:
-    close = difflib.get_close_matches(str(name), list(known), n=1, cutoff=0.6)
+    close = difflib.get_close_matches(str(name), list(known), n=1, cutoff=0.5)
     return f"; did you mean {close[0]!r}?" if close else ""
 
 
