@@ -114,7 +114,7 @@ def test_parse_spec_axes_and_counts():
                                    "zip": {"c.p": [1, 2], "c.q": [3, 4]}, "repeats": 2,
                                    "morphologies": ["m1.swc", "m2.swc"]})
     axes = spec.axes()
-    assert [a.dim for a in axes] == ["morphology", "a.x_ms", "b.x_ms", "zip", "repeat"]
+    assert [a.dim for a in axes] == ["morphology", "a_x_ms", "b_x_ms", "zip", "repeat"]
     assert spec.n_runs() == 2 * 3 * 2 * 2 * 2
     assert axes[3].points == ((1, 3), (2, 4))
 
@@ -337,3 +337,41 @@ def test_plot_sweep_feature(serial_result):
     assert len(lines) == 2
     np.testing.assert_array_equal(lines[0].get_xdata(), [1.0, 2.0, 3.0])
     assert lines[0].axes.get_xlabel() == "amplitude_nA (nA)"
+
+
+# --------------------------------------------------------------------------------------------
+# The demo sweep: direction of the A-type effect
+# --------------------------------------------------------------------------------------------
+
+@pytest.mark.slow
+def test_demo_sweep_more_a_type_gives_smaller_distal_bap(tmp_path):
+    # Hoffman, Magee, Colbert & Johnston 1997, Nature 387:869-875 (from memory, REFERENCES
+    # §3(b)): blocking the dendritic A-type current markedly increased distal bAP amplitude.
+    # Short runs on a coarser grid keep the test fast; the direction is what is checked.
+    from cabletree.scenario import with_overrides
+    demo = load_scenario(REPO / "scenarios" / "sweep_ka_gradient.toml")
+    short = with_overrides(demo, {"run.t_stop_ms": 12.0,
+                                  "run.dt_ms": 0.05, "run.record_interval_ms": 0.05,
+                                  "run.backend": "reference", "grid.max_length_um": 40.0,
+                                  "grid.lambda_fraction": 0.3,
+                                  "analysis.bap.window_ms": [4.0, 12.0]})
+    spec = sweep.override_spec(
+        sweep._spec_of(demo), grid=["channels.ka_gradient.gmax.slope_per_um=0.0,0.000822857",
+                                    "channels.ka_gradient.block_fraction=0.0,0.9"])
+    report = sweep.run_sweep(short, tmp_path, spec=spec, engine="serial", progress=None)
+    assert not report.failures
+    amp = report.dataset["bap_amplitude_mV"].sel(site="apical_300um")
+    slope, block = "slope_per_um", "block_fraction"
+    assert report.dataset[slope].attrs["units"] == "S cm-2 um-1"
+    # steeper gradient, no block: smaller distal bAP
+    assert float(amp.sel({slope: 0.000822857, block: 0.0})) < float(amp.sel({slope: 0.0, block: 0.0}))
+    # steep gradient: 90 % block gives a larger distal bAP
+    assert float(amp.sel({slope: 0.000822857, block: 0.9})) > float(amp.sel({slope: 0.000822857, block: 0.0}))
+    # the somatic spike changes much less than the distal one (Hoffman 1997, from memory)
+    soma = report.dataset["bap_amplitude_mV"].sel(site="soma")
+    assert float(np.ptp(soma.values)) < float(np.ptp(amp.values))
+    import matplotlib
+    matplotlib.use("Agg")
+    lines = sweep.plot_sweep_feature(report.dataset, "bap_amplitude_mV", slope,
+                                     site="apical_300um", hue=block)
+    assert len(lines) == 2

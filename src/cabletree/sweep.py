@@ -233,16 +233,19 @@ class SweepSpec:
 
 
 def _short_names(keys: Sequence[str]) -> dict[str, str]:
-    """Shortest unique trailing part of each dotted key (``morphology.file`` -> ``morphology``)."""
+    """Shortest unique trailing part of each dotted key, joined by "_" (a dot in a variable
+    name means an attribute to xarray): ``channels.ka.gmax.slope_per_um`` -> ``slope_per_um``,
+    or ``ka_gmax_slope_per_um`` if another key also ends in ``slope_per_um``;
+    ``morphology.file`` -> ``morphology``."""
     parts = {k: (["morphology"] if k == _MORPHOLOGY_KEY else k.split(".")) for k in keys}
     out: dict[str, str] = {}
     for k, p in parts.items():
         for n in range(1, len(p) + 1):
-            name = ".".join(p[-n:])
-            clash = any(".".join(q[-n:]) == name for j, q in parts.items() if j != k)
+            name = "_".join(p[-n:])
+            clash = any("_".join(q[-n:]) == name for j, q in parts.items() if j != k)
             if not clash and name not in _RESERVED_DIMS:
                 break
-        out[k] = name if name not in _RESERVED_DIMS else k
+        out[k] = name if name not in _RESERVED_DIMS else "_".join(p)
     return out
 
 
@@ -785,6 +788,8 @@ def combine_runs(runs: Sequence[Run], spec: SweepSpec, datasets: Mapping[str, xr
                                      compat="no_conflicts") if dims else lookup[()]
         combined = combined.assign_coords({c: template[c] for c in constant})
         combined = combined.transpose(*dims, ...)
+        for var in combined.variables.values():
+            var.encoding = {}  # integer encodings read from run files do not hold NaN
     else:
         combined = xr.Dataset()
     status = np.empty(shape, dtype=object)
