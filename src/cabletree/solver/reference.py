@@ -2,9 +2,21 @@
 
 Every step is vectorised over compartments; the only Python loops run over
 channel blocks, gates and depth levels of the tree, never over compartments.
-The tree system is solved exactly in O(N) by Gaussian elimination from the
-leaves to the root and back-substitution (Hines 1984, Int J Biomed Comput
-15:69-76), one depth level at a time.
+The tree system is solved exactly in O(N):
+
+- :class:`TreeMatrix`: Gaussian elimination from the leaves to the root and
+  back-substitution (Hines 1984, Int J Biomed Comput 15:69-76), one depth level
+  at a time.  Simple, but a Python-level loop over every depth level: slow for
+  deep trees (a 1000-compartment cable has 1000 levels).
+- :class:`BranchSchurSolver` (used by :class:`ReferenceStepper`): the same
+  system split into the branch points (and the root) and the unbranched chains
+  between them.  All chains form one block-diagonal symmetric positive-definite
+  tridiagonal system, solved by a single LAPACK ``dptsv`` call with three
+  right-hand sides; the Schur complement on the branch points is again a tree
+  matrix, solved by :class:`TreeMatrix` over the far fewer levels of the tree of
+  branch points (Golub & Van Loan, Matrix Computations, 4th ed. 2013, §4.3 and
+  §3.2.11 on block elimination).  Same answer as :class:`TreeMatrix` to
+  round-off.
 """
 
 from __future__ import annotations
@@ -18,7 +30,7 @@ from ..errors import NumericalInstabilityError
 from ..inputs import double_exponential_peak, mg_block
 from .plan import RunSettings, SolverState, StepSchedule
 
-__all__ = ["TreeMatrix", "ReferenceStepper"]
+__all__ = ["TreeMatrix", "BranchSchurSolver", "ReferenceStepper"]
 
 
 class TreeMatrix:
@@ -72,6 +84,165 @@ class TreeMatrix:
         return x
 
 
+class BranchSchurSolver:
+    """Solve the tree system by chains (one batched tridiagonal solve) and a Schur complement.
+
+    Parameters
+    ----------
+    parent : ndarray of int64, shape (n,)
+        Parent index, ``parent[i] < i``, -1 for the root.
+    offdiag : ndarray, shape (n,)
+        Coupling of each compartment to its parent (``offdiag[0]`` unused); fixed
+        for the solver's lifetime (the axial conductances do not change in time).
+
+    Notes
+    -----
+    Branch points ``B`` are the root and every compartment with two or more
+    children; the others form chains, each hanging from a branch point ``P`` by
+    its first compartment and, unless it ends in a terminal, carrying a branch
+    point ``E`` below its last one.  With ``A_II`` the chains' tridiagonal block,
+    ``U0 = A_II⁻¹ e_first``, ``U1 = A_II⁻¹ e_last`` and ``z = A_II⁻¹ r_I`` (one
+    ``dptsv`` call), the Schur complement ``S = A_BB - A_BI A_II⁻¹ A_IB`` couples
+    each ``E`` only to its ``P``, so ``S`` is a tree matrix on ``B``.
+    """
+
+    def __init__(self, parent: np.ndarray, offdiag: np.ndarray):
+        from scipy.linalg import lapack
+        self._dptsv = lapack.dptsv
+        parent = np.asarray(parent, dtype=np.int64)
+        n = parent.size
+        self.n = n
+        b = np.asarray(offdiag, dtype=float)
+        nchild = np.bincount(parent[1:], minlength=n) if n > 1 else np.zeros(n, np.int64)
+        is_b = nchild >= 2
+        is_b[0] = True
+        only_child = np.full(n, -1, dtype=np.int64)
+        one = np.nonzero(nchild == 1)[0]
+        kids = np.arange(1, n)
+        single = nchild[parent[1:]] == 1
+        only_child[parent[1:][single]] = kids[single]
+        del one
+        heads = np.nonzero(~is_b & np.concatenate([[False], is_b[parent[1:]]]))[0]
+        order, chain_of, pos_head, pos_tail, below = [], [], [], [], []
+        for c, h in enumerate(heads):  # walk each chain once (setup only)
+            pos_head.append(len(order))
+            node = int(h)
+            while True:
+                order.append(node)
+                chain_of.append(c)
+                nxt = int(only_child[node]) if nchild[node] == 1 else -1
+                if nxt < 0:
+                    below.append(-1)
+                    break
+                if is_b[nxt]:
+                    below.append(nxt)
+                    break
+                node = nxt
+            pos_tail.append(len(order) - 1)
+        self.interior = np.asarray(order, dtype=np.int64)
+        m = self.interior.size
+        chain_of = np.asarray(chain_of, dtype=np.int64)
+        pos_head = np.asarray(pos_head, dtype=np.int64)
+        pos_tail = np.asarray(pos_tail, dtype=np.int64)
+        below = np.asarray(below, dtype=np.int64)
+        # chain tridiagonal: coupling between consecutive positions of one chain
+        same = chain_of[1:] == chain_of[:-1] if m > 1 else np.zeros(0, bool)
+        self.e = np.where(same, b[self.interior[1:]] if m > 1 else 0.0, 0.0)
+        self.head_pos, self.tail_pos = pos_head, pos_tail
+        self.chain_top = parent[heads]                      # P of each chain
+        self.beta_top = b[heads]                            # coupling head - P
+        has_e = below >= 0
+        self.e_chains = np.nonzero(has_e)[0]
+        self.chain_bottom = below[has_e]                    # E of those chains
+        self.beta_bottom = b[self.chain_bottom]             # coupling tail - E
+        rhs_unit = np.zeros((m, 2))
+        rhs_unit[pos_head, 0] = 1.0
+        rhs_unit[pos_tail[has_e], 1] = 1.0
+        self._unit = rhs_unit
+        # per-position chain data for the back-substitution
+        self.pos_top = self.chain_top[chain_of] if m else np.zeros(0, np.int64)
+        self.pos_beta_top = self.beta_top[chain_of] if m else np.zeros(0)
+        e_of_chain = np.zeros(len(heads), dtype=np.int64)
+        beta_e_of_chain = np.zeros(len(heads))
+        e_of_chain[self.e_chains] = self.chain_bottom
+        beta_e_of_chain[self.e_chains] = self.beta_bottom
+        self.pos_bottom = e_of_chain[chain_of] if m else np.zeros(0, np.int64)
+        self.pos_beta_bottom = beta_e_of_chain[chain_of] if m else np.zeros(0)
+        # the tree of branch points, ordered by its own depth
+        bnodes = np.nonzero(is_b)[0]
+        bparent = np.full(n, -1, dtype=np.int64)
+        direct = bnodes[1:][is_b[parent[bnodes[1:]]]]
+        bparent[direct] = parent[direct]
+        bparent[self.chain_bottom] = self.chain_top[self.e_chains]
+        bdepth = np.zeros(n, dtype=np.int64)
+        for i in bnodes[1:]:  # increasing index: B-parents come first
+            bdepth[i] = bdepth[bparent[i]] + 1
+        perm = bnodes[np.argsort(bdepth[bnodes], kind="stable")]
+        self.bnodes = perm
+        local = np.full(n, -1, dtype=np.int64)
+        local[perm] = np.arange(perm.size)
+        self.local = local
+        self.direct = direct
+        lparent = np.where(bparent[perm] >= 0, local[np.maximum(bparent[perm], 0)], -1)
+        counts = np.bincount(bdepth[perm])
+        bounds = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+        self.btree = TreeMatrix(lparent, bounds)
+        self.b = b
+
+    def solve(self, d: np.ndarray, b: np.ndarray, r: np.ndarray) -> np.ndarray:
+        """Solve ``A x = r`` (``b`` must be the coupling given at construction).
+
+        Parameters
+        ----------
+        d : ndarray, shape (n,)
+            Diagonal.
+        b : ndarray, shape (n,)
+            Coupling of each compartment to its parent (``b[0]`` unused).
+        r : ndarray, shape (n,)
+            Right-hand side.
+
+        Returns
+        -------
+        ndarray, shape (n,)
+        """
+        loc = self.local
+        nb = self.bnodes.size
+        dS = d[self.bnodes].copy()
+        rS = r[self.bnodes].copy()
+        offS = np.zeros(nb)
+        offS[loc[self.direct]] = b[self.direct]
+        m = self.interior.size
+        if m:
+            rhs = np.empty((m, 3))
+            rhs[:, :2] = self._unit
+            rhs[:, 2] = r[self.interior]
+            _, _, sol, info = self._dptsv(d[self.interior], self.e, rhs)
+            if info != 0:
+                raise NumericalInstabilityError(
+                    f"the chain system is not positive definite (LAPACK dptsv info={info}); "
+                    "the membrane or axial conductances are not physical", time_ms=float("nan"),
+                    compartment=int(self.interior[min(abs(info), m) - 1]))
+            u0, u1, z = sol[:, 0], sol[:, 1], sol[:, 2]
+            hp, tp = self.head_pos, self.tail_pos
+            top = loc[self.chain_top]
+            bt = self.beta_top
+            np.subtract.at(dS, top, bt * bt * u0[hp])
+            np.subtract.at(rS, top, bt * z[hp])
+            ec = self.e_chains
+            bottom = loc[self.chain_bottom]
+            be = self.beta_bottom
+            dS[bottom] -= be * be * u1[tp[ec]]
+            rS[bottom] -= be * z[tp[ec]]
+            offS[bottom] = -bt[ec] * be * u1[hp[ec]]
+        y = self.btree.solve(dS, offS, rS)
+        x = np.empty(self.n)
+        x[self.bnodes] = y
+        if m:
+            x[self.interior] = (z - self.pos_beta_top * x[self.pos_top] * u0
+                                - self.pos_beta_bottom * x[self.pos_bottom] * u1)
+        return x
+
+
 class ReferenceStepper:
     """Integrates a :class:`CellModel` with numpy.
 
@@ -84,9 +255,9 @@ class ReferenceStepper:
         self.cell = cell
         grid = cell.grid
         n = grid.n_compartments
-        self.tree = TreeMatrix(grid.parent, grid.level_bounds())
         g = cell.axial_conductance_uS
         self.offdiag = -g
+        self.tree = BranchSchurSolver(grid.parent, self.offdiag)
         self.axial_diag = g + np.bincount(grid.parent[1:], g[1:], minlength=n)
         self.leak_current_nA = cell.leak_uS * cell.leak_reversal_mV
         self.blocks = []
@@ -258,7 +429,7 @@ class ReferenceStepper:
             if bad.any():
                 c = int(np.argmax(bad))
                 raise NumericalInstabilityError(
-                    f"membrane potential {v[c]!r} mV at compartment {c} (path distance "
+                    f"membrane potential {float(v[c])!r} mV at compartment {c} (path distance "
                     f"{self.cell.grid.path_distance_um[c]:.1f} µm) at t = {t:.6g} ms is NaN or "
                     f"beyond ±{limit} mV; reduce dt_ms or check the channel densities",
                     time_ms=t, compartment=c)

@@ -1,0 +1,710 @@
+"""The compiled backend: the whole time loop in one numba kernel.
+
+The kernel does exactly what :mod:`cabletree.solver.reference` does (the
+reference defines the semantics; tests hold the two to 1e-9 relative), but in
+compiled loops over compartments:
+
+- every channel block's gates are advanced by Rush-Larsen integration and its
+  conductance is added to the diagonal in the same loop (gating and assembly
+  fused);
+- synapse states, the NMDA magnesium block, current injections;
+- the tree system is solved by Gaussian elimination from the leaves to the
+  root and back-substitution in depth order (Hines 1984, Int J Biomed Comput
+  15:69-76): with compartments numbered by depth, ``parent[i] < i`` and a single
+  backward sweep followed by a forward sweep is exact;
+- the potential at the requested sites is written into a preallocated array and
+  a NaN or runaway potential stops the loop, reported with its time and
+  compartment.
+
+How channels get compiled
+-------------------------
+Channels are plain Python objects whose rate functions are numpy arithmetic
+(:mod:`cabletree.channels.base`).  For a cell's channel set this module writes
+the source of one kernel module: one gate-update function per channel (calling
+the channel's rate functions on scalars, with ``p`` built per compartment as the
+channel's own namedtuple) and the time loop calling them in turn.  The rate
+functions are compiled with numba after replacing, recursively, every plain
+Python function they call (helpers, closures) by its compiled version, and
+``np.exp`` by :func:`fast_exp`, a branch-free exponential (range reduction to
+``|r| <= ln2/2`` and a degree-12 Taylor polynomial, within 2 ulp of the libm
+value) that the compiler can vectorise, unlike the libm call.  The generated
+source is written to a file in the kernel cache directory named by a hash of
+all the code involved, so numba's on-disk cache (``cache=True``) lets later
+processes skip compilation; within a process kernels are kept per channel set.
+
+Compiler flags: ``error_model='numpy'`` (no divide-by-zero checks, which block
+vectorisation) and ``fastmath={'nsz', 'arcp', 'contract'}`` only: the flags
+that assume no NaN or infinity are left out so NaN detection stays exact, and
+re-association is left out so :func:`fast_exp`'s rounding trick survives.
+
+Threads: ``CompiledStepper(cell, threads=2)`` runs the gate loops with
+``numba.prange`` (the tree solve stays serial); off by default because sweeps
+parallelise over runs instead.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import importlib.util
+import inspect
+import math
+import os
+import sys
+import tempfile
+import types as pytypes
+from collections import namedtuple
+
+import numba
+import numpy as np
+from llvmlite import ir
+from numba import types as nbtypes
+from numba.extending import intrinsic
+
+from ..cell import CellModel
+from ..errors import NumericalInstabilityError, SolverError
+from ..inputs import double_exponential_peak
+from .plan import RunSettings, SolverState, StepSchedule
+
+__all__ = ["CompiledStepper", "fast_exp", "kernel_cache_dir", "FASTMATH_FLAGS"]
+
+#: LLVM fast-math flags used everywhere (no 'nnan'/'ninf', no 'reassoc').
+FASTMATH_FLAGS = frozenset({"nsz", "arcp", "contract"})
+_JIT = dict(fastmath=set(FASTMATH_FLAGS), error_model="numpy", nogil=True)
+_CODE_VERSION = "1"
+
+
+def kernel_cache_dir() -> str:
+    """Directory holding the generated kernel sources and numba's cache of them.
+
+    ``$CABLETREE_KERNEL_DIR`` if set, else ``$XDG_CACHE_HOME/cabletree/kernels``
+    (``~/.cache/cabletree/kernels``).
+    """
+    d = os.environ.get("CABLETREE_KERNEL_DIR")
+    if not d:
+        base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+        d = os.path.join(base, "cabletree", "kernels")
+    os.makedirs(d, exist_ok=True)
+    return d
+
+
+# --- a vectorisable exponential ----------------------------------------------
+
+@intrinsic
+def _bits_to_float(typingctx, x):
+    def codegen(context, builder, signature, args):
+        return builder.bitcast(args[0], ir.DoubleType())
+    return nbtypes.float64(nbtypes.int64), codegen
+
+
+@intrinsic
+def _float_to_bits(typingctx, x):
+    def codegen(context, builder, signature, args):
+        return builder.bitcast(args[0], ir.IntType(64))
+    return nbtypes.int64(nbtypes.float64), codegen
+
+
+_ROUND_MAGIC = 6755399441055744.0  # 1.5 * 2**52: adding it rounds to an integer
+_LOG2E = 1.4426950408889634
+_LN2_HI = 0.6931471803691238
+_LN2_LO = 1.9082149292705877e-10
+
+
+@numba.njit(**_JIT)
+def fast_exp(x):
+    """``exp(x)`` without a library call, so loops around it vectorise.
+
+    ``x = k ln2 + r`` with ``|r| <= ln2/2`` (Cody-Waite split of ln2), ``e^r`` by
+    its Taylor polynomial of degree 12 (truncation < 2e-16 relative), ``2^k`` by
+    writing the exponent bits.  Returns 0 below -708, inf above 709 and NaN for
+    NaN, like ``np.exp`` (which gives subnormals between -745 and -708).
+    """
+    xc = x
+    if xc > 709.0:
+        xc = 709.0
+    if xc < -708.0:
+        xc = -708.0
+    t = xc * _LOG2E + _ROUND_MAGIC
+    kf = t - _ROUND_MAGIC
+    ki = _float_to_bits(t) - _float_to_bits(_ROUND_MAGIC)
+    r = xc - kf * _LN2_HI - kf * _LN2_LO
+    p = 2.08767569878681e-09
+    p = p * r + 2.505210838544172e-08
+    p = p * r + 2.755731922398589e-07
+    p = p * r + 2.7557319223985893e-06
+    p = p * r + 2.48015873015873e-05
+    p = p * r + 0.0001984126984126984
+    p = p * r + 0.001388888888888889
+    p = p * r + 0.008333333333333333
+    p = p * r + 0.041666666666666664
+    p = p * r + 0.16666666666666666
+    p = p * r + 0.5
+    p = p * r + 1.0
+    p = p * r + 1.0
+    y = p * _bits_to_float((ki + 1023) << 52)
+    if x > 709.0:
+        y = np.inf
+    if x < -708.0:
+        y = 0.0
+    return y + (xc - xc)  # NaN in, NaN out (no 'nnan' flag, so this is not folded)
+
+
+@numba.njit(**_JIT)
+def scalar_where(condition, x, y):
+    """``np.where`` for scalars (numba's version allocates a 0-d array per call)."""
+    return x if condition else y
+
+
+class _FastNumpy(pytypes.ModuleType):
+    """A stand-in for ``numpy`` inside compiled rate functions.
+
+    ``exp`` is :func:`fast_exp` and ``where`` is :func:`scalar_where` (the kernel
+    calls rate functions on scalars); everything else is numpy's own.
+    """
+
+    def __getattr__(self, name):
+        return getattr(np, name)
+
+
+_FAST_NP = _FastNumpy("cabletree_fast_numpy")
+_FAST_NP.exp = fast_exp
+_FAST_NP.where = scalar_where
+
+
+# --- compiling rate functions -------------------------------------------------
+
+_JITTED: dict = {}
+
+
+def _referenced_functions(func):
+    """Plain Python functions referenced by ``func`` as globals or closure cells."""
+    code = func.__code__
+    out = {}
+    for name in code.co_names:
+        val = func.__globals__.get(name)
+        if isinstance(val, pytypes.FunctionType):
+            out[("g", name)] = val
+    for name, cell in zip(code.co_freevars, func.__closure__ or ()):
+        try:
+            val = cell.cell_contents
+        except ValueError:
+            continue
+        if isinstance(val, pytypes.FunctionType):
+            out[("c", name)] = val
+    return out
+
+
+def jit_rate_function(func):
+    """The numba-compiled version of a channel rate function (or a helper it calls).
+
+    Every plain Python function it references (module globals or closure cells)
+    is compiled the same way and substituted, and ``np`` is replaced by a
+    namespace whose ``exp`` is :func:`fast_exp`.  Compilation itself is lazy.
+    """
+    key = func
+    if key in _JITTED:
+        return _JITTED[key]
+    if isinstance(func, numba.core.registry.CPUDispatcher):
+        return func
+    refs = _referenced_functions(func)
+    g = dict(func.__globals__)
+    for (kind, name), f in refs.items():
+        if kind == "g":
+            g[name] = jit_rate_function(f)
+    for name in func.__code__.co_names:
+        if g.get(name) is np:
+            g[name] = _FAST_NP
+    closure = None
+    if func.__closure__:
+        cells = []
+        for name, cell in zip(func.__code__.co_freevars, func.__closure__):
+            val = cell.cell_contents
+            if isinstance(val, pytypes.FunctionType):
+                val = jit_rate_function(val)
+            elif val is np:
+                val = _FAST_NP
+            cells.append(pytypes.CellType(val))
+        closure = tuple(cells)
+    clone = pytypes.FunctionType(func.__code__, g, func.__name__, func.__defaults__, closure)
+    clone.__qualname__ = func.__qualname__
+    clone.__module__ = func.__module__
+    jitted = numba.njit(**_JIT)(clone)
+    _JITTED[key] = jitted
+    return jitted
+
+
+def _fingerprint(func, seen=None) -> str:
+    """Hash input describing a function's code, constants, closure values and callees."""
+    seen = set() if seen is None else seen
+    if id(func) in seen:
+        return ""
+    seen.add(id(func))
+    code = func.__code__
+    parts = [func.__module__ or "", func.__qualname__, code.co_code.hex(), repr(code.co_consts),
+             repr(code.co_names)]
+    for name in code.co_names:
+        val = func.__globals__.get(name)
+        if isinstance(val, (int, float)) and not isinstance(val, bool):
+            parts.append(f"{name}={val!r}")
+    for name, cell in zip(code.co_freevars, func.__closure__ or ()):
+        val = cell.cell_contents
+        if isinstance(val, (int, float, str)):
+            parts.append(f"{name}={val!r}")
+    for f in _referenced_functions(func).values():
+        parts.append(_fingerprint(f, seen))
+    return "|".join(parts)
+
+
+def _rate_functions(channel):
+    """(label, function) of every rate function of a channel."""
+    out = []
+    for j, gate in enumerate(channel.gates):
+        names = ("alpha", "beta") if gate.uses_rates else ("steady_state", "tau_ms")
+        for n in names:
+            out.append((f"{channel.name}.{gate.name}.{n}", getattr(gate, n)))
+    return out
+
+
+# --- generated source ------------------------------------------------------------
+
+def _block_source(b: int, channel, contiguous: bool) -> str:
+    """Source of the fused gate-update + conductance function of channel block ``b``.
+
+    A block on a contiguous run of compartments is called with views of ``v``,
+    ``G`` and ``J`` starting at its first compartment and indexes them directly
+    (a gather through ``index``, or even an offset, keeps the loop from
+    vectorising).
+    """
+    npar = len(channel.parameter_names)
+    lines = [f"@numba.njit(**_JIT_PAR)",
+             f"def block_{b}(v, index, offset, contiguous, x, par, gmax, erev, celsius, phi, "
+             "dt_gate, G, J):",
+             "    nk = gmax.size",
+             "    for k in numba.prange(nk):",
+             "        i = k" if contiguous else "        i = index[k]",
+             "        vi = v[i]",
+             f"        p = PT_{b}(" + "".join(f"par[{q}, k], " for q in range(npar)) + ")",
+             "        g = gmax[k]"]
+    for j, gate in enumerate(channel.gates):
+        scale = "phi" if gate.temperature_scaled else "1.0"
+        if gate.uses_rates:
+            lines += [f"        a = R_{b}_{j}_0(vi, celsius, p)",
+                      f"        bb = R_{b}_{j}_1(vi, celsius, p)",
+                      "        s = a + bb",
+                      "        inf = a / s",
+                      f"        tau = 1.0 / ({scale} * s)"]
+        else:
+            lines += [f"        inf = R_{b}_{j}_0(vi, celsius, p)",
+                      f"        tau = R_{b}_{j}_1(vi, celsius, p) / {scale}"]
+        lines += [f"        xj = inf + (x[{j}, k] - inf) * np.exp(-dt_gate / tau)",
+                  f"        x[{j}, k] = xj"]
+        for _ in range(int(gate.power)):
+            lines.append("        g = g * xj")
+    lines += ["        G[i] += g", "        J[i] += g * erev[k]", ""]
+    return "\n".join(lines)
+
+
+_KERNEL_TEMPLATE = '''
+@numba.njit(**_JIT)
+def gates_and_currents(v, dt_gate, G, J, celsius{block_params}):
+{block_calls}
+    return 0
+
+
+@numba.njit(**_JIT)
+def substep(v, v_out, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
+            cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r,
+            inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
+            sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
+            celsius{block_params}):
+    n = v.size
+    for i in range(n):
+        G[i] = leak_g[i]
+        J[i] = leak_j[i]
+    gates_and_currents(v, dt_gate, G, J, celsius{block_args})
+    ns = sa.size
+    if ns > 0:
+        for s in range(ns):
+            a0 = sa[s]
+            b0 = sb[s]
+            sa_old[s] = a0
+            sb_old[s] = b0
+            if syn_kind[s] == 0:
+                sb[s] = (b0 + a0 * h / syn_tau_a[s]) * ea_h[s]
+            else:
+                sb[s] = b0 * eb_h[s]
+            sa[s] = a0 * ea_h[s]
+        for e in range(ev_ptr[step], ev_ptr[step + 1]):
+            off = ev_off[e]
+            if not (first_half and second_half):
+                if first_half:
+                    if not ev_first[e]:
+                        continue
+                    off = off - 0.5 * dt
+                elif ev_first[e]:
+                    continue
+            s = ev_syn[e]
+            w = syn_weight[s]
+            ta = syn_tau_a[s]
+            if syn_kind[s] == 0:
+                ex = np.exp(-off / ta)
+                sa[s] += w * ex
+                sb[s] += w * (off / ta) * ex
+            else:
+                sa[s] += w * np.exp(-off / ta)
+                sb[s] += w * np.exp(-off / syn_tau_b[s])
+        for s in range(ns):
+            if cn:
+                ga = 0.5 * (sa_old[s] + sa[s])
+                gb = 0.5 * (sb_old[s] + sb[s])
+            else:
+                ga = sa[s]
+                gb = sb[s]
+            if syn_kind[s] == 0:
+                g = 1e-3 * gb
+            else:
+                g = 1e-3 * (ga - gb)
+            c = syn_comp[s]
+            if syn_mg[s] == syn_mg[s]:
+                g = g * (1.0 / (1.0 + (syn_mg[s] / 3.57) * np.exp(-0.062 * v[c])))
+            G[c] += g
+            J[c] += g * syn_rev[s]
+    for q in range(inj_comp.size):
+        J[inj_comp[q]] += inj_row[q]
+    heff = 0.5 * h if cn else h
+    for i in range(n):
+        c = cap[i] / heff
+        d[i] = c + G[i] + axial_diag[i]
+        r[i] = c * v[i] + J[i]
+    for i in range(n - 1, 0, -1):
+        p = parent[i]
+        f = offdiag[i] / d[i]
+        d[p] -= f * offdiag[i]
+        r[p] -= f * r[i]
+    v_out[0] = r[0] / d[0]
+    for i in range(1, n):
+        v_out[i] = (r[i] - offdiag[i] * v_out[parent[i]]) / d[i]
+    if cn:
+        for i in range(n):
+            v_out[i] = 2.0 * v_out[i] - v[i]
+    return 0
+
+
+@numba.njit(**_JIT_CACHE)
+def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0,
+        cap, leak_g, leak_j, axial_diag, offdiag, parent, v, records, record_index,
+        inj_comp, inj_mid, inj_end,
+        syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight, sa, sb,
+        ea_full, eb_full, ea_half, eb_half, ev_ptr, ev_syn, ev_off, ev_first,
+        celsius{block_params}):
+    n = v.size
+    G = np.empty(n)
+    J = np.empty(n)
+    d = np.empty(n)
+    r = np.empty(n)
+    w = np.empty(n)
+    sa_old = np.empty(sa.size)
+    sb_old = np.empty(sa.size)
+    lag = lag0
+    for q in range(record_index.size):
+        records[0, q] = v[record_index[q]]
+    rec = 1
+    for k in range(n_steps):
+        smooth = cn_method and smoothing[k]
+        n_sub = 2 if smooth else 1
+        for j in range(n_sub):
+            if cn_method and not smooth:
+                h = dt
+                cn = True
+                dt_gate = 0.5 * dt + lag
+                inj_row = inj_mid[k]
+                first_half = True
+                second_half = True
+                new_lag = 0.5 * dt
+            elif cn_method:
+                h = 0.5 * dt
+                cn = False
+                dt_gate = 0.5 * dt + lag
+                inj_row = inj_mid[k] if j == 0 else inj_end[k]
+                first_half = j == 0
+                second_half = j == 1
+                new_lag = 0.0
+            else:
+                h = dt
+                cn = False
+                dt_gate = dt + lag
+                inj_row = inj_end[k]
+                first_half = True
+                second_half = True
+                new_lag = 0.0
+            ea = ea_full if h == dt else ea_half
+            eb = eb_full if h == dt else eb_half
+            substep(v, w, h, cn, dt_gate, inj_row, first_half, second_half, k, dt,
+                    cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r,
+                    inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
+                    sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
+                    celsius{block_args})
+            for i in range(n):
+                v[i] = w[i]
+            lag = new_lag
+        bad = -1
+        for i in range(n):
+            if not (abs(v[i]) <= limit):
+                bad = i
+                break
+        if bad >= 0:
+            return k, bad, rec, lag
+        if (k + 1) % record_every == 0:
+            for q in range(record_index.size):
+                records[rec, q] = v[record_index[q]]
+            rec += 1
+    return -1, -1, rec, lag
+'''
+
+
+def _module_source(channels: tuple, contiguous: tuple) -> str:
+    """Source of the kernel module for a sequence of channel blocks."""
+    params = "".join(f", x{b}, idx{b}, off{b}, contig{b}, par{b}, gm{b}, er{b}, phi{b}"
+                     for b in range(len(channels)))
+    calls = []
+    for b, c in enumerate(contiguous):
+        if c:
+            view = f"off{b}:off{b} + gm{b}.size"
+            calls.append(f"    block_{b}(v[{view}], idx{b}, off{b}, contig{b}, x{b}, par{b}, gm{b}, "
+                         f"er{b}, celsius, phi{b}, dt_gate, G[{view}], J[{view}])\n")
+        else:
+            calls.append(f"    block_{b}(v, idx{b}, off{b}, contig{b}, x{b}, par{b}, gm{b}, er{b}, "
+                         f"celsius, phi{b}, dt_gate, G, J)\n")
+    calls = "".join(calls)
+    head = ("# generated by cabletree.solver.compiled; do not edit\n"
+            "import numba\n\n")
+    blocks = "\n".join(_block_source(b, ch, c)
+                        for b, (ch, c) in enumerate(zip(channels, contiguous)))
+    return (head + blocks + _KERNEL_TEMPLATE.format(block_params=params, block_args=params,
+                                                    block_calls=calls or "    pass\n"))
+
+
+_KERNELS: dict = {}
+
+
+def _load_kernel(channels: tuple, contiguous: tuple, threads: int):
+    """The compiled ``run`` function for a channel set (built once per process).
+
+    ``contiguous[b]`` says whether block ``b`` covers a contiguous index range.
+    """
+    key = (channels, contiguous, threads)
+    if key in _KERNELS:
+        return _KERNELS[key]
+    source = _module_source(channels, contiguous)
+    digest = hashlib.sha256()
+    digest.update(f"{_CODE_VERSION}|{numba.__version__}|{np.__version__}|{threads}|".encode())
+    digest.update(inspect.getsource(sys.modules[__name__]).encode())
+    digest.update(source.encode())
+    for ch in channels:
+        for _, f in _rate_functions(ch):
+            digest.update(_fingerprint(f).encode())
+        digest.update(repr(ch.parameter_names).encode())
+    name = f"cabletree_kernel_{digest.hexdigest()[:20]}"
+    directory = kernel_cache_dir()
+    path = os.path.join(directory, name + ".py")
+    if not os.path.exists(path):
+        fd, tmp = tempfile.mkstemp(dir=directory, suffix=".py.tmp")
+        with os.fdopen(fd, "w") as fh:
+            fh.write(source)
+        os.replace(tmp, path)
+    spec = importlib.util.spec_from_file_location(name, path)
+    module = importlib.util.module_from_spec(spec)
+    par = dict(_JIT, parallel=threads > 1)
+    module.__dict__.update(np=_FAST_NP, _JIT=dict(_JIT), _JIT_CACHE=dict(_JIT, cache=True),
+                           _JIT_PAR=par)
+    for b, ch in enumerate(channels):
+        module.__dict__[f"PT_{b}"] = ch.parameter_tuple
+        for j, gate in enumerate(ch.gates):
+            fs = (gate.alpha, gate.beta) if gate.uses_rates else (gate.steady_state, gate.tau_ms)
+            for q, f in enumerate(fs):
+                module.__dict__[f"R_{b}_{j}_{q}"] = jit_rate_function(f)
+    sys.modules[name] = module  # numba's cache finds the module's globals by name
+    spec.loader.exec_module(module)
+    _KERNELS[key] = module.run
+    return module.run
+
+
+def _diagnose(channels: tuple, celsius: float, exc: Exception) -> SolverError:
+    """Find the rate function that does not compile and say so."""
+    for ch in channels:
+        p = ch.make_parameters()
+        p = ch.parameter_tuple(*(float(x) for x in p))
+        for label, f in _rate_functions(ch):
+            try:
+                jit_rate_function(f)(-65.0, float(celsius), p)
+            except Exception as inner:  # numba raises many error types
+                first = str(inner).strip().splitlines()
+                return SolverError(
+                    f"rate function {label} ({f.__module__}.{f.__qualname__}) of channel "
+                    f"{ch.name!r} cannot be compiled by numba: "
+                    f"{first[0] if first else type(inner).__name__}; rewrite it with plain "
+                    "numpy arithmetic (see cabletree.channels.base) or run with "
+                    "backend='reference'")
+    return SolverError(f"the compiled kernel failed to build ({type(exc).__name__}: "
+                       f"{str(exc).strip().splitlines()[0] if str(exc).strip() else ''}); "
+                       "run with backend='reference' and report this")
+
+
+def _flat_synapses(cell: CellModel, sched: StepSchedule):
+    """Every synapse group flattened into per-synapse arrays and step-sorted events."""
+    comp, kind, ta, tb, rev, mg, weight = [], [], [], [], [], [], []
+    ev_step, ev_syn, ev_off, ev_first = [], [], [], []
+    base = 0
+    for grp, st, off, half in zip(cell.synapses, sched.synapse_event_step,
+                                  sched.synapse_event_offset_ms, sched.synapse_event_half):
+        k = grp.kinetics
+        s = grp.compartment.size
+        if k.shape == "alpha":
+            a, b, scale, code = k.tau_decay_ms, k.tau_decay_ms, math.e, 0
+        else:
+            a, b = k.tau_decay_ms, k.tau_rise_ms
+            scale, code = double_exponential_peak(k.tau_rise_ms, k.tau_decay_ms)[1], 1
+        comp.append(grp.compartment)
+        kind.append(np.full(s, code, np.int64))
+        ta.append(np.full(s, a))
+        tb.append(np.full(s, b))
+        rev.append(np.full(s, k.reversal_mV))
+        mg.append(np.full(s, np.nan if k.mg_mM is None else k.mg_mM))
+        weight.append(grp.weight_nS * scale)
+        ev_step.append(st)
+        ev_syn.append(grp.event_synapse[:st.size] + base)
+        ev_off.append(off)
+        ev_first.append(half)
+        base += s
+
+    def cat(parts, dtype):
+        return np.ascontiguousarray(np.concatenate(parts) if parts else np.zeros(0), dtype=dtype)
+
+    steps = cat(ev_step, np.int64)
+    order = np.argsort(steps, kind="stable")
+    ptr = np.searchsorted(steps[order], np.arange(sched.n_steps + 1), side="left")
+    return dict(syn_comp=cat(comp, np.int64), syn_kind=cat(kind, np.int64),
+                syn_tau_a=cat(ta, float), syn_tau_b=cat(tb, float), syn_rev=cat(rev, float),
+                syn_mg=cat(mg, float), syn_weight=cat(weight, float),
+                ev_ptr=np.ascontiguousarray(ptr, dtype=np.int64),
+                ev_syn=cat(ev_syn, np.int64)[order], ev_off=cat(ev_off, float)[order],
+                ev_first=cat(ev_first, np.bool_)[order])
+
+
+class CompiledStepper:
+    """Integrates a :class:`CellModel` with the numba kernel.
+
+    Parameters
+    ----------
+    cell : CellModel
+    threads : int
+        1 (default) runs serially; 2 or more run the gate loops with ``numba.prange``
+        on numba's thread pool (the tree solve stays serial).
+
+    Raises
+    ------
+    SolverError
+        When a channel's rate function cannot be compiled (the message names it).
+    """
+
+    def __init__(self, cell: CellModel, threads: int = 1):
+        if int(threads) != threads or threads < 1:
+            raise SolverError(f"threads must be an integer >= 1, got {threads!r}")
+        self.cell = cell
+        self.threads = int(threads)
+        grid = cell.grid
+        n = grid.n_compartments
+        g = np.ascontiguousarray(cell.axial_conductance_uS, dtype=float)
+        self.offdiag = -g
+        self.axial_diag = g + np.bincount(grid.parent[1:], g[1:], minlength=n)
+        self.parent = np.ascontiguousarray(grid.parent, dtype=np.int64)
+        self.leak_g = np.ascontiguousarray(cell.leak_uS, dtype=float)
+        self.leak_j = self.leak_g * cell.leak_reversal_mV
+        self.cap = np.ascontiguousarray(cell.capacitance_nF, dtype=float)
+        self.channels = tuple(b.channel for b in cell.channels)
+        self.block_static = []
+        for block in cell.channels:
+            idx = np.ascontiguousarray(block.index, dtype=np.int64)
+            contig = bool(idx.size == 0 or (idx[-1] - idx[0] + 1 == idx.size))
+            self.block_static.append((
+                idx, int(idx[0]) if idx.size else 0, contig,
+                np.ascontiguousarray(block.parameters, dtype=float).reshape(
+                    len(block.channel.parameter_names), idx.size),
+                np.ascontiguousarray(block.gmax_uS, dtype=float),
+                np.ascontiguousarray(block.reversal_mV, dtype=float),
+                float(block.channel.temperature_factor(cell.celsius))))
+        self.contiguous = tuple(bs[2] for bs in self.block_static)
+        self._kernel = None
+        self.n_steps_done = 0
+
+    def kernel(self):
+        """The compiled time loop for this cell's channel set (loaded or built on first use)."""
+        if self._kernel is None:
+            try:
+                self._kernel = _load_kernel(self.channels, self.contiguous, self.threads)
+            except SolverError:
+                raise
+            except Exception as exc:
+                raise _diagnose(self.channels, self.cell.celsius, exc) from exc
+        return self._kernel
+
+    def run(self, settings: RunSettings, sched: StepSchedule, state: SolverState,
+            record_index: np.ndarray):
+        """Integrate ``sched.n_steps`` steps from ``state``.
+
+        Returns
+        -------
+        (v_records, final_state) : (ndarray of shape (n_records, n_sites), SolverState)
+        """
+        kernel = self.kernel()
+        v = np.array(state.v_mV, dtype=float)
+        gates = [np.array(x, dtype=float).reshape(len(b.channel.gates), b.index.size)
+                 for b, x in zip(self.cell.channels, state.gates)]
+        syn = _flat_synapses(self.cell, sched)
+        n_syn = syn["syn_comp"].size
+        sa = np.concatenate([s[0] for s in state.synapse_states]) if n_syn else np.zeros(0)
+        sb = np.concatenate([s[1] for s in state.synapse_states]) if n_syn else np.zeros(0)
+        sa = np.ascontiguousarray(sa, dtype=float)
+        sb = np.ascontiguousarray(sb, dtype=float)
+        dt = sched.dt_ms
+        decay = {}
+        for name, h in (("full", dt), ("half", 0.5 * dt)):
+            decay[f"ea_{name}"] = np.exp(-h / syn["syn_tau_a"])
+            decay[f"eb_{name}"] = np.exp(-h / syn["syn_tau_b"])
+        rec_idx = np.ascontiguousarray(record_index, dtype=np.int64)
+        records = np.empty((sched.n_records, rec_idx.size))
+        m = sched.injection_compartment.size
+        inj_mid = np.ascontiguousarray(sched.injection_mid_nA, dtype=float).reshape(sched.n_steps, m)
+        inj_end = np.ascontiguousarray(sched.injection_end_nA, dtype=float).reshape(sched.n_steps, m)
+        block_args = []
+        for x, (idx, off, contig, par, gm, er, phi) in zip(gates, self.block_static):
+            block_args += [x, idx, off, contig, par, gm, er, phi]
+        args = (sched.n_steps, float(dt), settings.method == "crank_nicolson",
+                np.ascontiguousarray(sched.smoothing, dtype=np.bool_),
+                float(settings.max_abs_v_mV), int(sched.record_every), float(state.gate_lag_ms),
+                self.cap, self.leak_g, self.leak_j, self.axial_diag, self.offdiag, self.parent,
+                v, records, rec_idx,
+                np.ascontiguousarray(sched.injection_compartment, dtype=np.int64), inj_mid, inj_end,
+                syn["syn_comp"], syn["syn_kind"], syn["syn_tau_a"], syn["syn_tau_b"],
+                syn["syn_rev"], syn["syn_mg"], syn["syn_weight"], sa, sb,
+                decay["ea_full"], decay["eb_full"], decay["ea_half"], decay["eb_half"],
+                syn["ev_ptr"], syn["ev_syn"], syn["ev_off"], syn["ev_first"],
+                float(self.cell.celsius), *block_args)
+        try:
+            bad_step, bad_comp, n_rec, lag = kernel(*args)
+        except numba.core.errors.NumbaError as exc:
+            raise _diagnose(self.channels, self.cell.celsius, exc) from exc
+        if bad_step >= 0:
+            t = sched.t0_ms + (bad_step + 1) * dt
+            limit = settings.max_abs_v_mV
+            c = int(bad_comp)
+            raise NumericalInstabilityError(
+                f"membrane potential {float(v[c])!r} mV at compartment {c} (path distance "
+                f"{self.cell.grid.path_distance_um[c]:.1f} µm) at t = {t:.6g} ms is NaN or "
+                f"beyond ±{limit} mV; reduce dt_ms or check the channel densities",
+                time_ms=t, compartment=c)
+        self.n_steps_done += sched.n_steps
+        split = np.cumsum([g.compartment.size for g in self.cell.synapses])[:-1]
+        syn_states = tuple(np.array([a, b]) for a, b in zip(np.split(sa, split), np.split(sb, split)))
+        final = SolverState(sched.t0_ms + sched.n_steps * dt, v, tuple(gates), float(lag),
+                            syn_states, tuple(b.channel.name for b in self.cell.channels))
+        return records[:n_rec], final

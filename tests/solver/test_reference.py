@@ -1,0 +1,68 @@
+"""The reference backend's branch/Schur tree solver against plain level elimination.
+
+Both are exact direct methods for the same symmetric tree system (Hines 1984,
+Int J Biomed Comput 15:69-76, for the elimination order); they must agree to
+round-off, and both must satisfy ``A x = r`` to round-off (checked with the
+matrix assembled independently by scipy.sparse).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.sparse as sp
+
+from cabletree.grid import build_grid
+from cabletree.morphology import synthetic
+from cabletree.solver.reference import BranchSchurSolver, TreeMatrix
+
+
+def _system(parent, seed):
+    rng = np.random.default_rng(seed)
+    n = parent.size
+    g = rng.uniform(0.01, 2.0, n)
+    g[0] = 0.0
+    d = rng.uniform(0.001, 0.5, n) + g + np.bincount(parent[1:], g[1:], minlength=n)
+    r = rng.normal(0.0, 1.0, n)
+    return d, -g, r
+
+
+def _matrix(parent, d, b):
+    n = parent.size
+    i = np.arange(1, n)
+    a = sp.coo_matrix((np.concatenate([d, b[1:], b[1:]]),
+                       (np.concatenate([np.arange(n), i, parent[1:]]),
+                        np.concatenate([np.arange(n), parent[1:], i]))), shape=(n, n))
+    return a.tocsr()
+
+
+def _parents():
+    yield "cable", np.arange(-1, 299)  # an unbranched chain
+    yield "single", np.array([-1])
+    yield "star", np.concatenate([[-1], np.zeros(7, np.int64)])  # only branch points
+    for seed in range(3):
+        grid = build_grid(synthetic.random_tree(40, seed=seed, samples_per_branch=3))
+        yield f"random{seed}", grid.parent
+    grid = build_grid(synthetic.pyramidal_cell())
+    yield "pyramidal", grid.parent
+
+
+@pytest.mark.parametrize("name,parent", list(_parents()))
+def test_schur_solver_matches_level_elimination(name, parent):
+    levels = np.concatenate([[0], np.cumsum(np.bincount(_depth(parent)))]).astype(np.int64)
+    for seed in range(2):
+        d, b, r = _system(parent, seed)
+        x_tree = TreeMatrix(parent, levels).solve(d, b, r)
+        x_schur = BranchSchurSolver(parent, b).solve(d, b, r)
+        scale = np.max(np.abs(x_tree))
+        assert np.max(np.abs(x_schur - x_tree)) <= 1e-12 * scale
+        a = _matrix(parent, d, b)
+        assert np.max(np.abs(a @ x_schur - r)) <= 1e-12 * np.max(np.abs(r)) * 10
+
+
+def _depth(parent):
+    depth = np.zeros(parent.size, np.int64)
+    for i in range(1, parent.size):
+        depth[i] = depth[parent[i]] + 1
+    assert np.all(np.diff(depth) >= 0)  # depth-ordered, as the grid stores them
+    return depth
