@@ -18,7 +18,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .samples import SOMA, Morphology
+from .samples import Morphology
+from .soma import soma_mask
 
 __all__ = ["Branch", "branches", "path_distance_um", "is_soma_sample"]
 
@@ -66,15 +67,9 @@ def is_soma_sample(morph: Morphology) -> np.ndarray:
     -------
     ndarray of bool, shape (n_samples,)
     """
-    mask = np.zeros(morph.n_samples, dtype=bool)
     if not morph.has_soma:
-        return mask
-    types = morph.swc_type
-    parent = morph.parent_index
-    mask[0] = types[0] == SOMA
-    for i in range(1, morph.n_samples):
-        mask[i] = types[i] == SOMA and mask[parent[i]]
-    return mask
+        return np.zeros(morph.n_samples, dtype=bool)
+    return soma_mask(morph.swc_type, morph.parent_index)
 
 
 def path_distance_um(morph: Morphology) -> np.ndarray:
