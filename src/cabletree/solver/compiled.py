@@ -109,7 +109,7 @@ _LN2_HI = 0.6931471803691238
 _LN2_LO = 1.9082149292705877e-10
 
 
-@numba.njit(**_JIT)
+@numba.njit(inline="always", **_JIT)
 def fast_exp(x):
     """``exp(x)`` without a library call, so loops around it vectorise.
 
@@ -227,7 +227,7 @@ def jit_rate_function(func):
     clone = pytypes.FunctionType(func.__code__, g, func.__name__, func.__defaults__, closure)
     clone.__qualname__ = func.__qualname__
     clone.__module__ = func.__module__
-    jitted = numba.njit(**_JIT)(clone)
+    jitted = numba.njit(inline="always", **_JIT)(clone)
     _JITTED[key] = jitted
     return jitted
 

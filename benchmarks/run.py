@@ -1,0 +1,361 @@
+"""Solver benchmarks: compartment-steps per second, memory, scaling, start-up.
+
+Run ``python benchmarks/run.py [--quick] [--json FILE]``; see benchmarks/README.md
+for what every column means.  Speed is measured here only, never in unit tests.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import platform
+import subprocess
+import sys
+import tempfile
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+
+from cabletree.cell import CurrentInjection, Membrane, build_cell
+from cabletree.grid import SpacingRule
+from cabletree.inputs import StepCurrent
+from cabletree.morphology import read_swc, synthetic
+from cabletree.profiles import ChannelPlacement, Linear
+from cabletree.sites import soma_site
+from cabletree.solver import RunSettings, simulate
+from cabletree.solver.plan import make_schedule, resting_state
+from cabletree.solver.reference import ReferenceStepper
+
+ROOT = Path(__file__).resolve().parents[1]
+REAL_SWC = ROOT / "tests" / "data" / "l5_ttpc_pyramidal_rat_hay2013_cell4.swc"
+
+try:
+    from cabletree.solver.compiled import CompiledStepper
+except ImportError:  # numba missing: only the scipy/numpy backend is measured
+    CompiledStepper = None
+
+try:
+    from cabletree.channels import hh_potassium, hh_sodium, ih, ka_placements, hoffman_gradient
+    HAVE_DENDRITIC = True
+except ImportError:
+    from cabletree.channels import hh_potassium, hh_sodium
+    HAVE_DENDRITIC = False
+
+
+# --- cells ----------------------------------------------------------------------
+
+def channel_set(kind: str):
+    """Channel placements of a benchmark case."""
+    if kind == "passive":
+        return []
+    hh = [ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, 0.036)]
+    if kind == "hh":
+        return hh
+    if not HAVE_DENDRITIC:
+        return hh
+    # A-type with the Hoffman et al (1997) gradient, Ih rising with distance (Magee 1998)
+    return hh + list(ka_placements(hoffman_gradient(0.005))) + [
+        ChannelPlacement(ih, Linear(5e-5, 2e-7))]
+
+
+def generated_cell(n_target: int, kind: str):
+    """A random tree (cabletree.morphology.synthetic) with about ``n_target`` compartments."""
+    n_branches = max(3, int(round(n_target / 6.3)))
+    morph = synthetic.random_tree(n_branches, seed=7, samples_per_branch=4)
+    return build_cell(morph, spacing=SpacingRule(max_length_um=10.0, lambda_fraction=None),
+                      membrane=Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-65.0),
+                      channels=channel_set(kind), celsius=6.3 if kind != "hh_ka_ih" else 24.0)
+
+
+def real_cell(kind: str):
+    """The reconstruction in tests/data (attribution in tests/data/SOURCES.md)."""
+    morph = read_swc(REAL_SWC)
+    return build_cell(morph, spacing=SpacingRule(max_length_um=10.0, lambda_fraction=None),
+                      membrane=Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-65.0),
+                      channels=channel_set(kind), celsius=6.3 if kind != "hh_ka_ih" else 24.0)
+
+
+def with_drive(cell):
+    """Soma step current, soma recorded only."""
+    return cell.with_inputs(injections=[CurrentInjection(soma_site(cell.grid),
+                                                         StepCurrent(1.0, 0.5, 1e6))],
+                            recording_sites=[soma_site(cell.grid)])
+
+
+# --- timing -----------------------------------------------------------------------
+
+def make_stepper(cell, backend):
+    if backend == "reference":
+        return ReferenceStepper(cell)
+    threads = 2 if backend == "compiled_2threads" else 1
+    stepper = CompiledStepper(cell, threads=threads)
+    stepper.kernel()
+    return stepper
+
+
+def time_run(cell, backend, n_steps, repeats, dt=0.025):
+    """Median seconds per step and tracemalloc peak (MB) of ``n_steps`` steps."""
+    stepper = make_stepper(cell, backend)
+    warm = RunSettings(2 * dt, dt)
+    state = resting_state(cell, -65.0)
+    idx = np.array([0], dtype=np.int64)
+    stepper.run(warm, make_schedule(cell, warm), state, idx)  # load/compile outside timing
+    settings = RunSettings(n_steps * dt, dt)
+    times = []
+    for _ in range(repeats):
+        sched = make_schedule(cell, settings)
+        t0 = time.perf_counter()
+        stepper.run(settings, sched, state, idx)
+        times.append(time.perf_counter() - t0)
+    tracemalloc.start()
+    stepper.run(settings, make_schedule(cell, settings), state, idx)
+    _, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    # scratch arrays allocated inside the compiled kernel are invisible to tracemalloc
+    scratch = 5 * cell.n_compartments * 8 if backend.startswith("compiled") else 0
+    return float(np.median(times)) / n_steps, (peak + scratch) / 1e6
+
+
+def steps_for(n, backend, quick):
+    budget = {"reference": 4e6, "compiled": 6e7, "compiled_2threads": 6e7}[backend]
+    budget *= 0.3 if quick else 1.0
+    return int(max(4, min(2000, budget / n)))
+
+
+# --- solve_ivp comparison --------------------------------------------------------
+
+def mol_system(cell):
+    """Method-of-lines right-hand side and Jacobian sparsity of a cell (channels only)."""
+    import scipy.sparse as sp
+    n = cell.n_compartments
+    parent = cell.grid.parent
+    g = cell.axial_conductance_uS
+    blocks = [(b, b.parameter_tuple(), b.channel.temperature_factor(cell.celsius))
+              for b in cell.channels]
+    sizes = [len(b.channel.gates) * b.index.size for b in cell.channels]
+    offsets = np.concatenate([[n], n + np.cumsum(sizes)]).astype(int)
+    inj = cell.injections[0]
+    child = np.arange(1, n)
+
+    def rhs(t, y):
+        v = y[:n]
+        i_ax = np.zeros(n)
+        flow = g[1:] * (v[parent[1:]] - v[1:])
+        i_ax[1:] += flow
+        np.subtract.at(i_ax, parent[1:], flow)
+        i_m = cell.leak_uS * (cell.leak_reversal_mV - v)
+        dy = np.empty_like(y)
+        for (b, p, phi), o in zip(blocks, offsets[:-1]):
+            k = b.index.size
+            x = y[o:o + len(b.channel.gates) * k].reshape(-1, k)
+            vb = v[b.index]
+            for j, gate in enumerate(b.channel.gates):
+                inf, tau = gate.inf_tau(vb, cell.celsius, p, phi)
+                dy[o + j * k:o + (j + 1) * k] = (inf - x[j]) / tau
+            gch = b.gmax_uS * b.channel.open_fraction(x)
+            np.add.at(i_m, b.index, gch * (b.reversal_mV - vb))
+        i_m[0] += float(inj.waveform.current_nA(t))
+        dy[:n] = (i_m + i_ax) / cell.capacitance_nF
+        return dy
+
+    m = offsets[-1]
+    rows, cols = [np.arange(m)], [np.arange(m)]
+    rows += [child, parent[1:]]
+    cols += [parent[1:], child]
+    for b, o in zip(cell.channels, offsets[:-1]):
+        k = b.index.size
+        for j in range(len(b.channel.gates)):
+            gi = o + j * k + np.arange(k)
+            rows += [gi, b.index]
+            cols += [b.index, gi]
+    pattern = sp.coo_matrix((np.ones(sum(r.size for r in rows)),
+                             (np.concatenate(rows), np.concatenate(cols))), shape=(m, m)).tocsc()
+    y0 = np.concatenate([resting_state(cell, -65.0).v_mV] +
+                        [x.ravel() for x in resting_state(cell, -65.0).gates])
+    return rhs, pattern, y0
+
+
+def spikes(v, t):
+    from cabletree.analysis import spike_times
+    return spike_times(v, t, threshold_mV=-20.0, reference="crossing")
+
+
+def spike_error(a, b):
+    if len(a) != len(b) or len(a) == 0:
+        return math.inf
+    return float(np.max(np.abs(np.asarray(a) - np.asarray(b))))
+
+
+def ivp_comparison(quick):
+    """Compiled CN/BE vs solve_ivp BDF at equal spike-time accuracy on a 1000-compartment HH tree."""
+    from scipy.integrate import solve_ivp
+    cell = with_drive(generated_cell(1000, "hh"))
+    t_stop = 10.0 if quick else 20.0
+    fine = simulate(cell, RunSettings(t_stop, 0.001), backend="compiled"
+                    if CompiledStepper else "reference")
+    truth = spikes(fine.v_mV[:, 0], fine.time_ms)
+    out = {"n_compartments": cell.n_compartments, "t_stop_ms": t_stop,
+           "n_spikes": int(len(truth))}
+    backends = ["compiled", "reference"] if CompiledStepper else ["reference"]
+    for backend in backends:
+        for method in ("backward_euler", "crank_nicolson"):
+            s = RunSettings(t_stop, 0.025, method=method)
+            simulate(cell, RunSettings(0.05, 0.025, method=method), backend=backend)
+            t0 = time.perf_counter()
+            r = simulate(cell, s, backend=backend)
+            out[f"{backend}_{method}_s"] = time.perf_counter() - t0
+            out[f"{backend}_{method}_spike_error_ms"] = spike_error(
+                spikes(r.v_mV[:, 0], r.time_ms), truth)
+    target = out[f"{backends[0]}_backward_euler_spike_error_ms"]
+    rhs, pattern, y0 = mol_system(cell)
+    t_eval = np.arange(0.0, t_stop + 1e-9, 0.001)
+    for rtol in (1e-3, 1e-4, 1e-5, 1e-6):
+        t0 = time.perf_counter()
+        sol = solve_ivp(rhs, (0.0, t_stop), y0, method="BDF", jac_sparsity=pattern, rtol=rtol,
+                        atol=1e-6, t_eval=t_eval)
+        elapsed = time.perf_counter() - t0
+        err = spike_error(spikes(sol.y[0], sol.t), truth)
+        out.update(ivp_rtol=rtol, ivp_s=elapsed, ivp_spike_error_ms=err)
+        if err <= target:
+            break
+    return out
+
+
+# --- cold start ----------------------------------------------------------------------
+
+_COLD = r'''
+import time
+t0 = time.perf_counter()
+from cabletree.morphology import synthetic
+from cabletree.cell import build_cell
+from cabletree.profiles import ChannelPlacement
+from cabletree.channels import hh_sodium, hh_potassium
+from cabletree.solver import simulate, RunSettings
+cell = build_cell(synthetic.random_tree(30, seed=1),
+                  channels=[ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, 0.036)])
+t1 = time.perf_counter()
+simulate(cell, RunSettings(0.1, 0.025), backend="compiled")
+t2 = time.perf_counter()
+simulate(cell, RunSettings(0.1, 0.025), backend="reference")
+t3 = time.perf_counter()
+print((t2 - t1) - (t3 - t2), t1 - t0)
+'''
+
+
+def cold_start():
+    """Seconds the first compiled run adds in a fresh process, without and with the cache."""
+    out = {}
+    with tempfile.TemporaryDirectory() as d:
+        env = dict(os.environ, CABLETREE_KERNEL_DIR=d)
+        for label in ("no_cache", "with_cache"):
+            res = subprocess.run([sys.executable, "-c", _COLD], env=env, capture_output=True,
+                                 text=True, check=True)
+            first, setup = (float(x) for x in res.stdout.split())
+            out[f"{label}_s"] = first
+    return out
+
+
+# --- main ----------------------------------------------------------------------------
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__)
+    ap.add_argument("--quick", action="store_true", help="smaller run, under two minutes")
+    ap.add_argument("--json", type=Path, help="write the records to this file")
+    args = ap.parse_args(argv)
+    quick = args.quick
+    sizes = [1000, 10000] if quick else [1000, 10000, 100000]
+    repeats = 3
+    backends = ["reference"]
+    if CompiledStepper is not None:
+        backends = ["compiled", "compiled_2threads", "reference"]
+    records = []
+    kinds = ["passive", "hh", "hh_ka_ih"]
+    if not HAVE_DENDRITIC:
+        print("note: A-type/Ih channels not found; case hh_ka_ih runs HH only")
+    cells = []
+    for n in sizes:
+        for kind in kinds:
+            cells.append((f"{kind}_N{n:g}", kind, lambda n=n, kind=kind: generated_cell(n, kind)))
+    real_kinds = ["hh_ka_ih"] if quick else kinds
+    for kind in real_kinds:
+        cells.append((f"{kind}_real_l5", kind, lambda kind=kind: real_cell(kind)))
+    for case, kind, make in cells:
+        cell = with_drive(make())
+        n = cell.n_compartments
+        row = {}
+        for backend in backends:
+            if quick and backend == "compiled_2threads" and kind != "hh_ka_ih":
+                continue
+            steps = steps_for(n, backend, quick)
+            sec, mem = time_run(cell, backend, steps, repeats)
+            row[backend] = dict(case=case, backend=backend, n_compartments=n,
+                                cs_per_s=n / sec, peak_mem_mb=mem, s_per_step=sec,
+                                n_steps=steps, ratios={})
+            print(f"  {case:<22} {backend:<18} N={n:<7} {n / sec:10.3g} cs/s  {mem:8.2f} MB",
+                  flush=True)
+        base = row.get("compiled")
+        for rec in row.values():
+            if base is not None:
+                rec["ratios"]["vs_compiled"] = rec["cs_per_s"] / base["cs_per_s"]
+            records.append(rec)
+    print("solve_ivp comparison ...", flush=True)
+    ivp = ivp_comparison(quick)
+    fixed = "compiled" if CompiledStepper else "reference"
+    for rec in records:
+        rec["ratios"]["vs_solve_ivp_bdf_1000_hh"] = (ivp["ivp_s"] /
+                                                     ivp[f"{rec['backend'].replace('_2threads', '')}_backward_euler_s"]
+                                                     if rec["case"].startswith("hh_N1000") else None)
+    scaling = {}
+    if not quick:
+        for kind in kinds:
+            for backend in backends:
+                a = [r for r in records if r["case"] == f"{kind}_N10000" and r["backend"] == backend]
+                b = [r for r in records if r["case"] == f"{kind}_N100000" and r["backend"] == backend]
+                if a and b:
+                    scaling[f"{kind}/{backend}"] = b[0]["s_per_step"] / a[0]["s_per_step"]
+    print("cold start ...", flush=True)
+    cold = cold_start() if CompiledStepper else {}
+    meta = dict(cores=os.cpu_count(), machine=platform.processor() or platform.machine(),
+                python=platform.python_version(), quick=quick,
+                load_average=os.getloadavg() if hasattr(os, "getloadavg") else None)
+    print_table(records, ivp, scaling, cold, meta, fixed)
+    if args.json:
+        payload = dict(records=records, solve_ivp=ivp, scaling_1e5_over_1e4=scaling,
+                       cold_start=cold, machine=meta)
+        args.json.write_text(json.dumps(payload, indent=1, default=float))
+    return 0
+
+
+def print_table(records, ivp, scaling, cold, meta, fixed):
+    print()
+    print(f"machine: {meta['cores']} cores, load average {meta['load_average']}")
+    print(f"{'case':<22} {'backend':<18} {'N':>7} {'cs/s':>10} {'vs compiled':>11} "
+          f"{'peak MB':>8}")
+    for r in records:
+        vc = r["ratios"].get("vs_compiled")
+        print(f"{r['case']:<22} {r['backend']:<18} {r['n_compartments']:>7} {r['cs_per_s']:>10.3g} "
+              f"{'' if vc is None else f'{vc:.3g}':>11} {r['peak_mem_mb']:>8.2f}")
+    print()
+    print(f"solve_ivp BDF (sparse Jacobian), {ivp['n_compartments']} compartments HH, "
+          f"{ivp['t_stop_ms']} ms, {ivp['n_spikes']} spikes:")
+    print(f"  BDF rtol={ivp['ivp_rtol']:g}: {ivp['ivp_s']:.3g} s, spike-time error "
+          f"{ivp['ivp_spike_error_ms']:.3g} ms")
+    for k, v in ivp.items():
+        if k.endswith("_s") and k != "ivp_s":
+            m = k[:-2]
+            print(f"  {m}: {v:.3g} s, spike-time error {ivp[m + '_spike_error_ms']:.3g} ms, "
+                  f"solve_ivp/this = {ivp['ivp_s'] / v:.3g}")
+    if scaling:
+        print("time per step N=1e5 / N=1e4: " +
+              ", ".join(f"{k} {v:.3g}" for k, v in scaling.items()))
+    if cold:
+        print(f"cold start (first compiled run in a new process): no cache "
+              f"{cold['no_cache_s']:.3g} s, with cache {cold['with_cache_s']:.3g} s")
+
+
+if __name__ == "__main__":
+    sys.exit(main())
