@@ -216,7 +216,11 @@ class BranchSchurSolver:
             rhs = np.empty((m, 3))
             rhs[:, :2] = self._unit
             rhs[:, 2] = r[self.interior]
-            _, _, sol, info = self._dptsv(d[self.interior], self.e, rhs)
+            if m == 1:  # LAPACK's wrapper cannot take the empty off-diagonal of a 1×1 system
+                d1 = d[self.interior]
+                sol, info = rhs / d1[:, None], (0 if d1[0] > 0 else 1)
+            else:
+                _, _, sol, info = self._dptsv(d[self.interior], self.e, rhs)
             if info != 0:
                 raise NumericalInstabilityError(
                     f"the chain system is not positive definite (LAPACK dptsv info={info}); "
