@@ -297,6 +297,7 @@ def _draw(kind: str, ds: xr.Dataset, features: dict, analysis: dict):
         plots.plot_profiles(ds["compartment_path_distance_um"].values, maps, ax=ax)
     else:  # summary
         fig = plt.figure(figsize=(12.0, 4.6), layout="constrained")
+        fig.get_layout_engine().set(wspace=0.08)
         axes = fig.subplots(1, 3, width_ratios=(0.8, 1.2, 1.0))
         plots.plot_morphology(ds, values, ax=axes[0], colorbar_label=label, sites=True)
         plots.plot_traces(ds, ax=axes[1])

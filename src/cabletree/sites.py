@@ -35,10 +35,14 @@ def soma_site(grid: Grid, name: str = "soma") -> Site:
 
 def site_at_distance(grid: Grid, path_distance_um: float, swc_types=(4,), name: str | None = None,
                      tolerance_um: float | None = None) -> Site:
-    """The compartment of the given SWC types closest to a path distance.
+    """The compartment of the given SWC types at a path distance, on the main path.
 
-    Among compartments equally close (within 1e-9 µm) the thickest wins, so on a
-    pyramidal cell the site falls on the apical trunk rather than an oblique.
+    Every compartment of those types whose path distance is within half the
+    longest such compartment of the target can represent it (the grid has no
+    node exactly there); among those at least 90 % as thick as the thickest, the
+    closest wins (the margin keeps a tapering trunk from always giving its more
+    proximal node).  So on a pyramidal cell the site falls on the apical trunk rather than on
+    an oblique branch that happens to have a node a little nearer.
 
     Parameters
     ----------
@@ -62,9 +66,12 @@ def site_at_distance(grid: Grid, path_distance_um: float, swc_types=(4,), name: 
     if candidates.size == 0:
         raise CellModelError(f"no compartment of SWC type(s) {types} on the grid ({grid.source})")
     mismatch = np.abs(grid.path_distance_um[candidates] - path_distance_um)
-    best = mismatch.min()
-    tied = candidates[mismatch <= best + 1e-9]
-    chosen = int(tied[np.argmax(grid.diameter_um[tied])])
+    best = float(mismatch.min())
+    window = max(best, 0.5 * float(grid.length_um[candidates].max())) + 1e-9
+    near = candidates[mismatch <= window]
+    near_mismatch = mismatch[mismatch <= window]
+    thick = grid.diameter_um[near] >= 0.9 * grid.diameter_um[near].max()
+    chosen = int(near[thick][np.argmin(near_mismatch[thick])])
     tol = tolerance_um if tolerance_um is not None else 0.5 * float(
         grid.length_um[candidates].max()) + 1.0
     if best > tol:
