@@ -100,3 +100,10 @@ def test_exit_codes_via_subprocess(tmp_path, short_scenario):
     r = cli("run", str(blow), "--out", str(tmp_path / "o"))
     assert r.returncode == 3, r.stderr
     assert "numerical failure" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_run_reports_progress(short_scenario, tmp_path, capsys):
+    # progress on long runs: at least the final line "100.0 %  t = ... ms" on stderr
+    assert main(["run", str(short_scenario), "--out", str(tmp_path)]) == 0
+    err = capsys.readouterr().err
+    assert "100.0 %" in err and "t = 12.0 ms" in err

@@ -47,6 +47,24 @@ def _progress(message: str) -> None:
     print(message, file=sys.stderr, flush=True)
 
 
+def _run_progress(min_interval_s: float = 2.0):
+    """A ``progress(fraction, time_ms)`` callback printing at most every ``min_interval_s``."""
+    start = time.perf_counter()
+    last = [start]
+
+    def report(fraction: float, time_ms: float) -> None:
+        now = time.perf_counter()
+        if now - last[0] < min_interval_s and fraction < 1.0:
+            return
+        last[0] = now
+        elapsed = now - start
+        left = elapsed * (1.0 - fraction) / fraction if fraction > 0 else float("nan")
+        _progress(f"  {100 * fraction:5.1f} %  t = {time_ms:.1f} ms  "
+                  f"({elapsed:.1f} s elapsed, about {left:.1f} s left)")
+
+    return report
+
+
 # --------------------------------------------------------------------------------------------
 # run
 # --------------------------------------------------------------------------------------------
@@ -79,7 +97,7 @@ def _cmd_run(args) -> int:
     else:
         _progress(f"running {args.scenario} (run.t_stop_ms = "
                   f"{scenario.data['run']['t_stop_ms']:g} ms) ...")
-        ds = run_scenario(scenario, backend=args.backend)
+        ds = run_scenario(scenario, backend=args.backend, progress=_run_progress())
     _progress(f"simulated in {time.perf_counter() - t0:.1f} s")
     save_dataset(ds, out / "results.nc")
     _say(f"results: {out / 'results.nc'}")

@@ -1062,7 +1062,7 @@ def _settled_state(cell, settings, settle_ms: float, backend: str):
     return dataclasses.replace(state, time_ms=0.0)
 
 
-def run_scenario(scenario: Scenario, backend: str = "auto"):
+def run_scenario(scenario: Scenario, backend: str = "auto", progress=None):
     """Run a scenario and return its labelled results.
 
     Parameters
@@ -1070,6 +1070,9 @@ def run_scenario(scenario: Scenario, backend: str = "auto"):
     scenario : Scenario
     backend : {"auto", "reference", "compiled"}
         Solver backend; ``"auto"`` defers to ``run.backend`` of the scenario.
+    progress : callable, optional
+        ``progress(fraction_done, time_ms)``, called during the recorded run (see
+        :func:`cabletree.solver.simulate`).
 
     Returns
     -------
@@ -1092,7 +1095,7 @@ def run_scenario(scenario: Scenario, backend: str = "auto"):
     chosen = c.backend if backend == "auto" else backend
     state = (_settled_state(c.cell, c.settings, c.settle_ms, chosen) if c.settle_ms > 0
              else None)
-    out = simulate(c.cell, c.settings, initial_state=state, backend=chosen)
+    out = simulate(c.cell, c.settings, initial_state=state, backend=chosen, progress=progress)
     ds = make_dataset(c.cell, out, scenario_text=dump_scenario(scenario))
     ds.attrs["seeds"] = "; ".join(f"{k}={v}" for k, v in c.seeds.items())
     ds.attrs["run_seed"] = int(c.seeds["run.seed"])

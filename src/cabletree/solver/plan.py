@@ -124,7 +124,8 @@ class StepSchedule:
     n_records: int
 
 
-def make_schedule(cell: CellModel, settings: RunSettings, t0_ms: float = 0.0) -> StepSchedule:
+def make_schedule(cell: CellModel, settings: RunSettings, t0_ms: float = 0.0,
+                  smooth_first_step: bool = True) -> StepSchedule:
     """Prepare the per-step input arrays for a run starting at ``t0_ms``.
 
     Parameters
@@ -133,6 +134,9 @@ def make_schedule(cell: CellModel, settings: RunSettings, t0_ms: float = 0.0) ->
     settings : RunSettings
     t0_ms : float
         Start time, ms (non-zero when continuing from a saved state).
+    smooth_first_step : bool
+        Damp the first Crank-Nicolson step (a start or restart); False when the
+        schedule continues a run seamlessly (a later chunk of one run).
 
     Returns
     -------
@@ -143,7 +147,7 @@ def make_schedule(cell: CellModel, settings: RunSettings, t0_ms: float = 0.0) ->
     t_start = t0_ms + dt * np.arange(n)
     smoothing = np.zeros(n, dtype=bool)
     if settings.method == "crank_nicolson" and settings.smoothing and n:
-        smoothing[0] = True
+        smoothing[0] = smooth_first_step
         for bp in cell.breakpoints_ms():
             k = (bp - t0_ms) / dt
             if k < -1e-9 or k >= n:
