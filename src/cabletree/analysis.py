@@ -25,7 +25,6 @@ from __future__ import annotations
 import csv
 import io
 import os
-import tempfile
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -34,6 +33,7 @@ import numpy as np
 import xarray as xr
 
 from cabletree.errors import ResultsError
+from cabletree.fileio import write_atomically
 
 __all__ = [
     "spike_times",
@@ -799,26 +799,6 @@ def _column_header(name: str, units: str) -> str:
     return f"{name}_{token}"
 
 
-def _write_atomically(path: str | os.PathLike, write: Callable[[Path], None]) -> Path:
-    """Call ``write(tmp_path)`` on a temporary file beside ``path`` and rename it over ``path``.
-
-    An interrupted write leaves no half-written ``path``.  The temporary name keeps the suffix
-    of ``path`` so writers that infer the format from it still work.
-    """
-    target = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.stem}.", suffix=target.suffix,
-                               dir=target.parent if str(target.parent) else ".")
-    os.close(fd)
-    try:
-        write(Path(tmp))
-        os.replace(tmp, target)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-    return target
-
-
 def features_table(features: xr.Dataset, path: str | os.PathLike | None = None) -> str:
     """CSV table of a features Dataset over one dimension, with units in the column headers.
 
@@ -853,7 +833,7 @@ def features_table(features: xr.Dataset, path: str | os.PathLike | None = None) 
         writer.writerow([_cell(x) for x in row])
     text = buffer.getvalue()
     if path is not None:
-        _write_atomically(path, lambda tmp: tmp.write_text(text, encoding="utf-8"))
+        write_atomically(path, lambda tmp: tmp.write_text(text, encoding="utf-8"))
     return text
 
 

@@ -110,11 +110,11 @@ def _cmd_run(args) -> int:
 
 
 def _write_threshold_table(result, keys, path: Path) -> None:
-    from .analysis import _write_atomically
+    from .fileio import write_atomically
 
     rows = ["tested_value,criterion_met"] + [f"{x!r},{int(ok)}" for x, ok in result.history]
     rows.append(f"# threshold = {result.threshold!r} (keys: {' '.join(keys)})")
-    _write_atomically(path, lambda tmp: tmp.write_text("\n".join(rows) + "\n", encoding="utf-8"))
+    write_atomically(path, lambda tmp: tmp.write_text("\n".join(rows) + "\n", encoding="utf-8"))
 
 
 def _add_run(sub) -> None:

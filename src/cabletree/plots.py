@@ -18,7 +18,8 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from cabletree.analysis import _unit_parts, _write_atomically
+from cabletree.analysis import _unit_parts
+from cabletree.fileio import write_atomically
 from cabletree.errors import ResultsError
 
 __all__ = [
@@ -367,4 +368,4 @@ def save_figure(fig, path: str | os.PathLike, *, dpi: int = 300) -> Path:
     if fmt is None:
         raise ResultsError(f"save_figure: cannot write {str(target)!r}; expected a suffix in "
                            f"{sorted(_SAVE_FORMATS)}")
-    return _write_atomically(target, lambda tmp: fig.savefig(tmp, format=fmt, dpi=dpi))
+    return write_atomically(target, lambda tmp: fig.savefig(tmp, format=fmt, dpi=dpi))

@@ -23,7 +23,6 @@ renamed, so a failed write never leaves a half-written file.
 from __future__ import annotations
 
 import os
-import tempfile
 from importlib import metadata
 
 import numpy as np
@@ -31,6 +30,7 @@ import xarray as xr
 
 from .cell import CellModel
 from .errors import ResultsError
+from .fileio import write_atomically
 
 __all__ = ["make_dataset", "compartment_map", "save_dataset", "load_dataset", "package_version"]
 
@@ -175,14 +175,9 @@ def save_dataset(ds: xr.Dataset, path) -> None:
             out.attrs[key] = int(value)
         elif value is None:
             out.attrs[key] = ""
-    fd, tmp = tempfile.mkstemp(dir=folder, suffix=".nc.tmp")
-    os.close(fd)
     try:
-        out.to_netcdf(tmp, engine="scipy", format="NETCDF3_64BIT")
-        os.replace(tmp, path)
+        write_atomically(path, lambda tmp: out.to_netcdf(tmp, engine="scipy", format="NETCDF3_64BIT"))
     except Exception as exc:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
         raise ResultsError(f"could not write results to {path}: {exc}") from exc
 
 

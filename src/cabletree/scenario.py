@@ -1181,7 +1181,7 @@ def save_scenario(scenario: Scenario, path: str | os.PathLike) -> Path:
     if "file" in m and not os.path.isabs(m["file"]):
         absolute = os.path.abspath(os.path.join(scenario.base_dir, m["file"]))
         m["file"] = os.path.relpath(absolute, os.path.abspath(target.parent or "."))
-    from .analysis import _write_atomically
+    from .fileio import write_atomically
 
-    _write_atomically(target, lambda tmp: tmp.write_text(dump_scenario(data), encoding="utf-8"))
+    write_atomically(target, lambda tmp: tmp.write_text(dump_scenario(data), encoding="utf-8"))
     return target

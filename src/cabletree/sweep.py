@@ -64,6 +64,7 @@ import numpy as np
 import xarray as xr
 
 from . import analysis
+from .fileio import write_atomically
 from .errors import CableTreeError, ScenarioError, SweepError
 from .results import load_dataset, package_version, save_dataset
 
@@ -701,7 +702,7 @@ def _error_file(out_dir: Path, run_hash: str) -> Path:
 
 def _write_text_atomically(path: Path, text: str) -> None:
     # one atomic-write helper for the package lives in analysis
-    analysis._write_atomically(path, lambda tmp: tmp.write_text(text, encoding="utf-8"))
+    write_atomically(path, lambda tmp: tmp.write_text(text, encoding="utf-8"))
 
 
 def _store(out_dir: Path, run: Run, outcome: RunOutcome) -> None:

@@ -31,13 +31,13 @@ from __future__ import annotations
 
 import os
 import re
-import tempfile
 import warnings
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import MorphologyError, SwcFormatError
+from ..fileio import write_atomically
 from .repair import Repairs, clamp_min_radius, halve_radii, merge_zero_length_samples
 from .samples import Morphology
 from .soma import make_morphology, soma_mask
@@ -402,15 +402,11 @@ def write_swc(morph: Morphology, path: str | os.PathLike) -> Path:
     """
     target = Path(path)
     text = format_swc(morph)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent or ".")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as handle:
+
+    def write(tmp: Path) -> None:
+        with open(tmp, "w", encoding="utf-8", newline="\n") as handle:
             handle.write(text)
             handle.flush()
             os.fsync(handle.fileno())
-        os.replace(tmp, target)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-    return target
+
+    return write_atomically(target, write)

@@ -207,9 +207,7 @@ class SolverState:
 
     def save(self, path) -> None:
         """Write the state to a ``.npz`` file (atomically: temporary name, then rename)."""
-        import os
-        import tempfile
-        path = os.fspath(path)
+        from ..fileio import write_atomically
         arrays = {"time_ms": np.array(self.time_ms), "v_mV": self.v_mV,
                   "gate_lag_ms": np.array(self.gate_lag_ms),
                   "channel_names": np.array(self.channel_names, dtype=str)}
@@ -217,17 +215,12 @@ class SolverState:
             arrays[f"gates_{i}"] = g
         for i, s in enumerate(self.synapse_states):
             arrays[f"synapses_{i}"] = s
-        d = os.path.dirname(os.path.abspath(path))
-        fd, tmp = tempfile.mkstemp(dir=d, suffix=".npz.tmp")
-        os.close(fd)
-        try:
+
+        def write(tmp):
             with open(tmp, "wb") as fh:
                 np.savez(fh, **arrays)
-            os.replace(tmp, path)
-        except BaseException:
-            if os.path.exists(tmp):
-                os.unlink(tmp)
-            raise
+
+        write_atomically(path, write)
 
     @staticmethod
     def load(path) -> "SolverState":
