@@ -6,6 +6,11 @@ steady state there (chord conductances), giving the conductance matrix
 in O(N) with the same tree elimination as the time stepper (Hines 1984); the
 membrane time constant is the slowest mode of ``C dV/dt = -G V`` (Rall 1969,
 Biophys J 9:1483-1508: the slowest equalising time constant).
+
+These functions compute properties *of the model* directly.  Their namesakes in
+:mod:`cabletree.analysis` (``input_resistance_MOhm``, ``membrane_time_constant_ms``)
+measure the same quantities *from recorded traces*, as an experimenter would;
+for a passive cell the two agree (tests/test_analysis.py checks it).
 """
 
 from __future__ import annotations
