@@ -31,3 +31,11 @@ def test_failed_write_keeps_the_old_file(tmp_path):
         write_atomically(target, broken)
     assert target.read_text() == "old"
     assert [p.name for p in tmp_path.iterdir()] == ["table.csv"]
+
+
+def test_stale_temporaries_are_removed(tmp_path):
+    from cabletree.fileio import remove_stale_temporaries
+    (tmp_path / ".run.nc.abc123.tmp").write_text("half")
+    (tmp_path / "run.nc").write_text("done")
+    assert remove_stale_temporaries(tmp_path) == 1
+    assert [p.name for p in tmp_path.iterdir()] == ["run.nc"]

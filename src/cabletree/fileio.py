@@ -13,7 +13,19 @@ import tempfile
 from pathlib import Path
 from typing import Callable
 
-__all__ = ["write_atomically"]
+__all__ = ["write_atomically", "TEMPORARY_SUFFIX", "remove_stale_temporaries"]
+
+#: Suffix of the temporary files (left behind only if the process is killed mid-write).
+TEMPORARY_SUFFIX = ".tmp"
+
+
+def remove_stale_temporaries(folder: str | os.PathLike) -> int:
+    """Delete temporary files that a killed writer left in ``folder``; return how many."""
+    n = 0
+    for p in Path(folder).glob(f".*{TEMPORARY_SUFFIX}"):
+        p.unlink(missing_ok=True)
+        n += 1
+    return n
 
 
 def _umask() -> int:
@@ -30,8 +42,9 @@ def write_atomically(path: str | os.PathLike, write: Callable[[Path], None]) -> 
     path : str or path-like
         Destination file; its folder must exist.
     write : callable
-        Writes the whole content to the path it is given.  The temporary name keeps
-        the suffix of ``path``, so writers that infer the format from it still work.
+        Writes the whole content to the path it is given: a hidden name beside
+        ``path`` ending in ``.tmp`` (so a folder scan for ``*.nc`` or ``*.csv`` never
+        sees an unfinished file; writers must not infer the format from the suffix).
 
     Returns
     -------
@@ -46,7 +59,7 @@ def write_atomically(path: str | os.PathLike, write: Callable[[Path], None]) -> 
     """
     target = Path(path)
     folder = target.parent if str(target.parent) else Path(".")
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.stem}.", suffix=target.suffix, dir=folder)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=TEMPORARY_SUFFIX, dir=folder)
     os.close(fd)
     try:
         write(Path(tmp))

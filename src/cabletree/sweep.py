@@ -64,7 +64,7 @@ import numpy as np
 import xarray as xr
 
 from . import analysis
-from .fileio import write_atomically
+from .fileio import remove_stale_temporaries, write_atomically
 from .errors import CableTreeError, ScenarioError, SweepError
 from .results import load_dataset, package_version, save_dataset
 
@@ -981,6 +981,7 @@ def run_sweep(scenario, out_dir: str | os.PathLike, *, spec: SweepSpec | None = 
     spec = _spec_of(scenario) if spec is None else spec
     out = Path(out_dir)
     (out / "runs").mkdir(parents=True, exist_ok=True)
+    remove_stale_temporaries(out / "runs")  # left by a sweep killed mid-write
     runs = expand_runs(scenario, spec)
     todo = pending_runs(runs, out)
     by_hash = {r.run_hash: r for r in runs}

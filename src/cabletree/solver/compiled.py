@@ -50,7 +50,6 @@ import inspect
 import math
 import os
 import sys
-import tempfile
 import types as pytypes
 from collections import namedtuple
 
@@ -61,6 +60,7 @@ from numba import types as nbtypes
 from numba.extending import intrinsic
 
 from ..cell import CellModel
+from ..fileio import write_atomically
 from ..errors import NumericalInstabilityError, SolverError
 from ..inputs import double_exponential_peak
 from .plan import RunSettings, SolverState, StepSchedule
@@ -507,10 +507,7 @@ def _load_kernel(channels: tuple, contiguous: tuple, threads: int):
     directory = kernel_cache_dir()
     path = os.path.join(directory, name + ".py")
     if not os.path.exists(path):
-        fd, tmp = tempfile.mkstemp(dir=directory, suffix=".py.tmp")
-        with os.fdopen(fd, "w") as fh:
-            fh.write(source)
-        os.replace(tmp, path)
+        write_atomically(path, lambda tmp: tmp.write_text(source))
     spec = importlib.util.spec_from_file_location(name, path)
     module = importlib.util.module_from_spec(spec)
     par = dict(_JIT, parallel=threads > 1)
