@@ -329,9 +329,7 @@ def substep(v, v_out, h, cn, dt_gate, inj_row, first_half, second_half, step, dt
             sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
             celsius{block_params}):
     n = v.size
-    for i in range(n):
-        G[i] = leak_g[i]
-        J[i] = leak_j[i]
+    # G and J hold the leak on entry (set by the caller, then reset below)
     gates_and_currents(v, dt_gate, G, J, celsius{block_args})
     ns = sa.size
     if ns > 0:
@@ -382,22 +380,32 @@ def substep(v, v_out, h, cn, dt_gate, inj_row, first_half, second_half, step, dt
             J[c] += g * syn_rev[s]
     for q in range(inj_comp.size):
         J[inj_comp[q]] += inj_row[q]
-    heff = 0.5 * h if cn else h
+    rheff = 2.0 / h if cn else 1.0 / h
     for i in range(n):
-        c = cap[i] / heff
+        c = cap[i] * rheff
         d[i] = c + G[i] + axial_diag[i]
         r[i] = c * v[i] + J[i]
+        G[i] = leak_g[i]
+        J[i] = leak_j[i]
+    # elimination; d[i] is final when i is reached, so its reciprocal replaces it
+    # and the back-substitution multiplies instead of dividing again
     for i in range(n - 1, 0, -1):
         p = parent[i]
-        f = offdiag[i] / d[i]
+        rd = 1.0 / d[i]
+        d[i] = rd
+        f = offdiag[i] * rd
         d[p] -= f * offdiag[i]
         r[p] -= f * r[i]
     v_out[0] = r[0] / d[0]
     for i in range(1, n):
-        v_out[i] = (r[i] - offdiag[i] * v_out[parent[i]]) / d[i]
+        v_out[i] = (r[i] - offdiag[i] * v_out[parent[i]]) * d[i]
+    # the new potential (Crank-Nicolson: extrapolated from the half step)
     if cn:
         for i in range(n):
-            v_out[i] = 2.0 * v_out[i] - v[i]
+            v[i] = 2.0 * v_out[i] - v[i]
+    else:
+        for i in range(n):
+            v[i] = v_out[i]
     return 0
 
 
@@ -409,8 +417,8 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0,
         ea_full, eb_full, ea_half, eb_half, ev_ptr, ev_syn, ev_off, ev_first,
         celsius{block_params}):
     n = v.size
-    G = np.empty(n)
-    J = np.empty(n)
+    G = leak_g.copy()
+    J = leak_j.copy()
     d = np.empty(n)
     r = np.empty(n)
     w = np.empty(n)
@@ -455,15 +463,14 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0,
                     inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                     sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
                     celsius{block_args})
-            for i in range(n):
-                v[i] = w[i]
             lag = new_lag
-        bad = -1
+        n_bad = 0
         for i in range(n):
-            if not (abs(v[i]) <= limit):
-                bad = i
-                break
-        if bad >= 0:
+            n_bad += 0 if abs(v[i]) <= limit else 1  # NaN counts as bad
+        if n_bad > 0:
+            bad = 0
+            while abs(v[bad]) <= limit:
+                bad += 1
             return k, bad, rec, lag
         if (k + 1) % record_every == 0:
             for q in range(record_index.size):
