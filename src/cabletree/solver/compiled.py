@@ -109,7 +109,9 @@ _LN2_HI = 0.6931471803691238
 _LN2_LO = 1.9082149292705877e-10
 
 
-@numba.njit(inline="always", **_JIT)
+# not inlined at numba IR level (LLVM inlines it): copying its IR into every call
+# site made kernels take much longer to compile
+@numba.njit(**_JIT)
 def fast_exp(x):
     """``exp(x)`` without a library call, so loops around it vectorise.
 
