@@ -290,6 +290,16 @@ def build_grid(morph: Morphology, rule: SpacingRule | None = None, *,
     Returns
     -------
     Grid
+
+    Examples
+    --------
+    A 20 µm soma with a 200 µm dendrite, cut into pieces of at most 10 µm:
+
+    >>> from cabletree.morphology import synthetic
+    >>> grid = build_grid(synthetic.ball_and_stick(20.0, 200.0, 2.0),
+    ...                   SpacingRule(max_length_um=10.0, lambda_fraction=None))
+    >>> grid.n_compartments, float(grid.path_distance_um.max())
+    (21, 210.0)
     """
     rule = SpacingRule() if rule is None else rule
     xyz = np.asarray(morph.xyz_um, dtype=float)

@@ -111,6 +111,24 @@ def simulate(cell: CellModel, settings: RunSettings, *, initial_state: SolverSta
     NumericalInstabilityError
         When the potential becomes NaN or leaves ±``settings.max_abs_v_mV``; the
         message names the time and the compartment.
+
+    Examples
+    --------
+    A Hodgkin-Huxley soma fires when a 10 µA/cm² step is injected:
+
+    >>> from cabletree.cell import CurrentInjection, Membrane, build_cell
+    >>> from cabletree.channels import hh_potassium, hh_sodium
+    >>> from cabletree.inputs import StepCurrent
+    >>> from cabletree.morphology import synthetic
+    >>> from cabletree.profiles import ChannelPlacement
+    >>> from cabletree.sites import Site
+    >>> cell = build_cell(synthetic.ball_and_stick(20.0, 50.0, 2.0),
+    ...                   membrane=Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-54.387),
+    ...                   channels=[ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, 0.036)],
+    ...                   injections=[CurrentInjection(Site("soma", 0), StepCurrent(0.2, 1.0, 10.0))])
+    >>> out = simulate(cell, RunSettings(t_stop_ms=10.0, dt_ms=0.025), backend="reference")
+    >>> bool(out.v_mV[:, 0].max() > 20.0)
+    True
     """
     from dataclasses import replace
 

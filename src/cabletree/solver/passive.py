@@ -120,7 +120,23 @@ def transfer_resistance_MOhm(cell: CellModel, inject_compartment: int, record_co
 
 
 def input_resistance_MOhm(cell: CellModel, compartment: int = 0, holding_mV: float = -65.0) -> float:
-    """Steady-state input resistance at a compartment, MΩ."""
+    """Steady-state input resistance at a compartment, MΩ.
+
+    Examples
+    --------
+    A sealed cable one length constant long (d = 2 µm, Rm = 20 kΩ·cm², Ri =
+    150 Ω·cm, λ = 816.5 µm) has R_in = R∞ coth 1 = 511.88 MΩ (Rall; Jack, Noble &
+    Tsien 1975):
+
+    >>> from cabletree.cell import Membrane, build_cell
+    >>> from cabletree.grid import SpacingRule
+    >>> from cabletree.morphology import synthetic
+    >>> cell = build_cell(synthetic.cylinder(816.4966, 2.0, n_samples=2),
+    ...                   membrane=Membrane(leak_S_per_cm2=1 / 20_000, axial_resistivity_ohm_cm=150.0),
+    ...                   spacing=SpacingRule(max_length_um=8.2, lambda_fraction=None))
+    >>> round(input_resistance_MOhm(cell), 1)
+    511.9
+    """
     return transfer_resistance_MOhm(cell, compartment, compartment, holding_mV)
 
 
