@@ -37,9 +37,11 @@ vectorisation) and ``fastmath={'nsz', 'arcp', 'contract'}`` only: the flags
 that assume no NaN or infinity are left out so NaN detection stays exact, and
 re-association is left out so :func:`fast_exp`'s rounding trick survives.
 
-Threads: ``CompiledStepper(cell, threads=2)`` runs the gate loops with
-``numba.prange`` (the tree solve stays serial); off by default because sweeps
-parallelise over runs instead.
+Threads: ``CompiledStepper(cell, threads=2)`` splits the compartments into two
+ranges of about equal gate work and updates every channel block of one range on
+one thread, in a single ``numba.prange`` region per step (no two threads write
+the same compartment; the tree solve stays serial); off by default because
+sweeps parallelise over runs instead.
 """
 
 from __future__ import annotations
@@ -269,27 +271,34 @@ def _rate_functions(channel):
 def _block_source(b: int, channel, contiguous: bool) -> str:
     """Source of the fused gate-update + conductance function of channel block ``b``.
 
-    A block on a contiguous run of compartments is called with views of ``v``,
-    ``G`` and ``J`` starting at its first compartment and indexes them directly.
-    Any other block first gathers ``v`` into a contiguous scratch array, runs the
-    same loop writing its conductances to a second scratch array, and then adds
-    them to ``G`` and ``J`` through ``index``: a gather inside the rate loop keeps
-    it from vectorising.  Divisions are avoided where a product does: the gate
-    factor is ``exp(-dt (alpha + beta) phi)`` rather than ``exp(-dt / tau)``.
+    The function updates the block's entries ``k0 <= k < k1`` (all of them on one
+    thread; with more threads, each thread calls it for the entries whose
+    compartments lie in its own compartment range, so no two threads ever write
+    the same element of ``G`` or ``J``).  A block on a contiguous run of
+    compartments is called with views of ``v``, ``G`` and ``J`` starting at its
+    first compartment and indexes them directly.  Any other block first gathers
+    ``v`` into a contiguous scratch array, runs the same loop writing its
+    conductances to a second scratch array, and then adds them to ``G`` and ``J``
+    through ``index``: a gather inside the rate loop keeps it from vectorising.
+    Divisions are avoided where a product does: the gate factor is
+    ``exp(-dt (alpha + beta) phi)`` rather than ``exp(-dt / tau)``.
     """
     npar = len(channel.parameter_names)
-    lines = [f"@numba.njit(**_JIT_PAR)",
-             f"def block_{b}(v, index, offset, contiguous, x, par, gmax, erev, celsius, phi, "
+    lines = ["@numba.njit(**_JIT)",
+             f"def block_{b}(v, index, k0, k1, x, par, gmax, erev, celsius, phi, "
              "dt_gate, G, J):",
-             "    nk = gmax.size",
+             "    if k0 < 0:  # never; tells the compiler k >= 0 (no negative-index wraparound)",
+             "        return",
              "    dts = dt_gate * phi"]
     if not contiguous:
-        lines += ["    vg = np.empty(nk)",
-                  "    gg = np.empty(nk)",
-                  "    for k in range(nk):",
-                  "        vg[k] = v[index[k]]"]
-    lines += ["    for k in numba.prange(nk):",
-              "        vi = v[k]" if contiguous else "        vi = vg[k]",
+        lines += ["    m = k1 - k0",
+                  "    vg = np.empty(m)",
+                  "    gg = np.empty(m)",
+                  "    for k in range(m):",
+                  "        vg[k] = v[index[k0 + k]]"]
+    lines += ["    for kk in range(k1 - k0):",
+              "        k = k0 + kk",
+              "        vi = v[k]" if contiguous else "        vi = vg[kk]",
               f"        p = PT_{b}(" + "".join(f"par[{q}, k], " for q in range(npar)) + ")",
               "        g = gmax[k]"]
     for j, gate in enumerate(channel.gates):
@@ -309,17 +318,20 @@ def _block_source(b: int, channel, contiguous: bool) -> str:
     if contiguous:
         lines += ["        G[k] += g", "        J[k] += g * erev[k]", ""]
     else:
-        lines += ["        gg[k] = g",
-                  "    for k in range(nk):",
-                  "        i = index[k]",
+        lines += ["        gg[kk] = g",
+                  "    for k in range(m):",
+                  "        i = index[k0 + k]",
                   "        G[i] += gg[k]",
-                  "        J[i] += gg[k] * erev[k]", ""]
+                  "        J[i] += gg[k] * erev[k0 + k]", ""]
     return "\n".join(lines)
 
 
 _KERNEL_TEMPLATE = '''
-@numba.njit(**_JIT)
+@numba.njit(**_JIT_PAR)
 def gates_and_currents(v, dt_gate, G, J, celsius{block_params}):
+    # one parallel region per call: chunk t covers one range of compartments in
+    # every block (sp<b>[t]:sp<b>[t + 1] are the block entries in that range)
+    for t in numba.prange(N_CHUNKS):
 {block_calls}
     return 0
 
@@ -484,16 +496,18 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0,
 
 def _module_source(channels: tuple, contiguous: tuple) -> str:
     """Source of the kernel module for a sequence of channel blocks."""
-    params = "".join(f", x{b}, idx{b}, off{b}, contig{b}, par{b}, gm{b}, er{b}, phi{b}"
+    params = "".join(f", x{b}, idx{b}, sp{b}, par{b}, gm{b}, er{b}, phi{b}"
                      for b in range(len(channels)))
     calls = []
     for b, c in enumerate(contiguous):
+        rng = f"sp{b}[t], sp{b}[t + 1]"
         if c:
-            view = f"off{b}:off{b} + gm{b}.size"
-            calls.append(f"    block_{b}(v[{view}], idx{b}, off{b}, contig{b}, x{b}, par{b}, gm{b}, "
+            view = f"idx{b}[0]:idx{b}[0] + gm{b}.size"
+            calls.append(f"        if gm{b}.size > 0:\n"
+                         f"            block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, gm{b}, "
                          f"er{b}, celsius, phi{b}, dt_gate, G[{view}], J[{view}])\n")
         else:
-            calls.append(f"    block_{b}(v, idx{b}, off{b}, contig{b}, x{b}, par{b}, gm{b}, er{b}, "
+            calls.append(f"        block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
                          f"celsius, phi{b}, dt_gate, G, J)\n")
     calls = "".join(calls)
     head = ("# generated by cabletree.solver.compiled; do not edit\n"
@@ -501,7 +515,7 @@ def _module_source(channels: tuple, contiguous: tuple) -> str:
     blocks = "\n".join(_block_source(b, ch, c)
                         for b, (ch, c) in enumerate(zip(channels, contiguous)))
     return (head + blocks + _KERNEL_TEMPLATE.format(block_params=params, block_args=params,
-                                                    block_calls=calls or "    pass\n"))
+                                                    block_calls=calls or "        pass\n"))
 
 
 _KERNELS: dict = {}
@@ -533,7 +547,7 @@ def _load_kernel(channels: tuple, contiguous: tuple, threads: int):
     module = importlib.util.module_from_spec(spec)
     par = dict(_JIT, parallel=threads > 1)
     module.__dict__.update(np=_FAST_NP, _JIT=dict(_JIT), _JIT_CACHE=dict(_JIT, cache=True),
-                           _JIT_PAR=par)
+                           _JIT_PAR=par, N_CHUNKS=int(threads))
     for b, ch in enumerate(channels):
         module.__dict__[f"PT_{b}"] = ch.parameter_tuple
         for j, gate in enumerate(ch.gates):
@@ -608,6 +622,22 @@ def _flat_synapses(cell: CellModel, sched: StepSchedule):
                 ev_first=cat(ev_first, np.bool_)[order])
 
 
+def _chunk_bounds(cell: CellModel, n_chunks: int) -> np.ndarray:
+    """Compartment boundaries splitting the gate work into ``n_chunks`` ranges.
+
+    Each compartment is weighted by the number of gates (plus one per channel for
+    the conductance) it carries, and the ranges hold about equal total weight.
+    Returns ``n_chunks + 1`` increasing compartment indices from 0 to N.
+    """
+    n = cell.n_compartments
+    work = np.ones(n)
+    for block in cell.channels:
+        work[block.index] += len(block.channel.gates) + 1
+    cum = np.cumsum(work)
+    inner = np.searchsorted(cum, cum[-1] * np.arange(1, n_chunks) / n_chunks)
+    return np.concatenate([[0], inner, [n]]).astype(np.int64)
+
+
 class CompiledStepper:
     """Integrates a :class:`CellModel` with the numba kernel.
 
@@ -615,8 +645,8 @@ class CompiledStepper:
     ----------
     cell : CellModel
     threads : int
-        1 (default) runs serially; 2 or more run the gate loops with ``numba.prange``
-        on numba's thread pool (the tree solve stays serial).
+        1 (default) runs serially; 2 or more split the gate loops over that many
+        compartment ranges run on numba's thread pool (the tree solve stays serial).
 
     Raises
     ------
@@ -639,12 +669,13 @@ class CompiledStepper:
         self.leak_j = self.leak_g * cell.leak_reversal_mV
         self.cap = np.ascontiguousarray(cell.capacitance_nF, dtype=float)
         self.channels = tuple(b.channel for b in cell.channels)
+        bounds = _chunk_bounds(cell, self.threads)
         self.block_static = []
         for block in cell.channels:
             idx = np.ascontiguousarray(block.index, dtype=np.int64)
             contig = bool(idx.size == 0 or (idx[-1] - idx[0] + 1 == idx.size))
             self.block_static.append((
-                idx, int(idx[0]) if idx.size else 0, contig,
+                idx, np.searchsorted(idx, bounds).astype(np.int64), contig,
                 np.ascontiguousarray(block.parameters, dtype=float).reshape(
                     len(block.channel.parameter_names), idx.size),
                 np.ascontiguousarray(block.gmax_uS, dtype=float),
@@ -694,8 +725,8 @@ class CompiledStepper:
         inj_mid = np.ascontiguousarray(sched.injection_mid_nA, dtype=float).reshape(sched.n_steps, m)
         inj_end = np.ascontiguousarray(sched.injection_end_nA, dtype=float).reshape(sched.n_steps, m)
         block_args = []
-        for x, (idx, off, contig, par, gm, er, phi) in zip(gates, self.block_static):
-            block_args += [x, idx, off, contig, par, gm, er, phi]
+        for x, (idx, split, _, par, gm, er, phi) in zip(gates, self.block_static):
+            block_args += [x, idx, split, par, gm, er, phi]
         args = (sched.n_steps, float(dt), settings.method == "crank_nicolson",
                 np.ascontiguousarray(sched.smoothing, dtype=np.bool_),
                 float(settings.max_abs_v_mV), int(sched.record_every), float(state.gate_lag_ms),
