@@ -247,6 +247,13 @@ class BranchSchurSolver:
         return x
 
 
+def _block_selector(index: np.ndarray):
+    """A slice for a contiguous run of compartment indices (views, not copies), else the index."""
+    if index.size and index[-1] - index[0] + 1 == index.size and np.all(np.diff(index) == 1):
+        return slice(int(index[0]), int(index[-1]) + 1)
+    return index
+
+
 class ReferenceStepper:
     """Integrates a :class:`CellModel` with numpy.
 
@@ -266,7 +273,7 @@ class ReferenceStepper:
         self.leak_current_nA = cell.leak_uS * cell.leak_reversal_mV
         self.blocks = []
         for block in cell.channels:
-            self.blocks.append((block, block.parameter_tuple(),
+            self.blocks.append((block, _block_selector(block.index), block.parameter_tuple(),
                                 block.channel.temperature_factor(cell.celsius)))
         self.synapse_groups = []
         for grp in cell.synapses:
@@ -282,22 +289,38 @@ class ReferenceStepper:
         self.n_solves = 0
 
     # -- pieces of one step ---------------------------------------------------
-    def _advance_gates(self, v, gates, dt_gate):
-        out = []
-        for (block, p, phi), x in zip(self.blocks, gates):
-            vb = v[block.index]
-            new = np.empty_like(x)
-            for j, gate in enumerate(block.channel.gates):
-                inf, tau = gate.inf_tau(vb, self.cell.celsius, p, phi)
-                new[j] = inf + (x[j] - inf) * np.exp(-dt_gate / tau)
-            out.append(new)
-        return out
+    def _advance_gates(self, v, gates, dt_gate, G, J):
+        """Gates after ``dt_gate`` (Rush-Larsen); adds the channel conductances to G, J.
 
-    def _channel_conductances(self, gates, G, J):
-        for (block, _, _), x in zip(self.blocks, gates):
-            g = block.gmax_uS * block.channel.open_fraction(x)
-            G[block.index] += g
-            J[block.index] += g * block.reversal_mV
+        Rate gates use ``exp(-dt phi (alpha + beta))`` and the open fraction is a
+        product of repeated multiplications, the arithmetic of the compiled kernel.
+        """
+        out = []
+        celsius = self.cell.celsius
+        for (block, where, p, phi), x in zip(self.blocks, gates):
+            vb = v[where]
+            new = np.empty_like(x)
+            g = block.gmax_uS.copy()
+            for j, gate in enumerate(block.channel.gates):
+                dt_eff = dt_gate * (phi if gate.temperature_scaled else 1.0)
+                if gate.uses_rates:
+                    a = gate.alpha(vb, celsius, p)
+                    s = a + gate.beta(vb, celsius, p)
+                    inf = a / s
+                    e = np.exp(np.multiply(s, -dt_eff, out=s))
+                else:
+                    inf = gate.steady_state(vb, celsius, p)
+                    e = np.exp(-dt_eff / gate.tau_ms(vb, celsius, p))
+                xj = np.subtract(x[j], inf, out=new[j])
+                xj *= e
+                xj += inf
+                for _ in range(int(gate.power)):
+                    g *= xj
+            out.append(new)
+            G[where] += g
+            g *= block.reversal_mV
+            J[where] += g
+        return out
 
     def _advance_synapses(self, states, h, step, first_half, second_half):
         """Synapse states at t+h, adding the events of ``step`` in the selected halves."""
@@ -348,15 +371,14 @@ class ReferenceStepper:
     def _step(self, t, v, gates, lag, syn, h, mode, current, step, halves):
         """One backward-Euler (mode 'be') or staggered CN ('cn') step of size h."""
         n = v.size
-        if mode == "cn":
-            gates = self._advance_gates(v, gates, h / 2 + lag)
-            new_lag = h / 2
-        else:
-            gates = self._advance_gates(v, gates, h + lag)
-            new_lag = 0.0
         G = self.cell.leak_uS.copy()
         J = self.leak_current_nA.copy()
-        self._channel_conductances(gates, G, J)
+        if mode == "cn":
+            gates = self._advance_gates(v, gates, h / 2 + lag, G, J)
+            new_lag = h / 2
+        else:
+            gates = self._advance_gates(v, gates, h + lag, G, J)
+            new_lag = 0.0
         syn_new = self._advance_synapses(syn, h, step, *halves)
         if self.synapse_groups:
             if mode == "cn":
