@@ -107,3 +107,16 @@ def test_run_reports_progress(short_scenario, tmp_path, capsys):
     assert main(["run", str(short_scenario), "--out", str(tmp_path)]) == 0
     err = capsys.readouterr().err
     assert "100.0 %" in err and "t = 12.0 ms" in err
+
+
+def test_check_swc_with_repairs_and_hint(capsys):
+    # A zero-radius single-point soma (the Purkinje reconstruction, tests/data/SOURCES.md)
+    # is refused with a hint naming the command-line and scenario spellings of the repair;
+    # with the repair the file checks and the repair is reported.
+    purkinje = ROOT / "tests" / "data" / "purkinje_guineapig_rapp_v_e_purk2.swc"
+    assert main(["check", str(purkinje)]) == 1
+    err = capsys.readouterr().err
+    assert "line 23" in err and "--soma-radius-um" in err and "[morphology.repairs]" in err
+    assert main(["check", str(purkinje), "--soma-radius-um", "10"]) == 0
+    out = capsys.readouterr().out
+    assert "soma radius set to 10" in out

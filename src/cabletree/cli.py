@@ -146,11 +146,25 @@ def _cmd_check(args) -> int:
         return EXIT_OK
     import warnings
 
-    from .morphology import format_summary, read_swc, summarize
+    from .errors import MorphologyError
+    from .morphology import Repairs, format_summary, read_swc, summarize
 
+    repairs = Repairs(min_radius_um=args.min_radius_um, soma_radius_um=args.soma_radius_um,
+                      infer_soma_radius=args.infer_soma_radius,
+                      merge_zero_length=args.merge_zero_length,
+                      radius_is_diameter=args.radius_is_diameter)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        morph = read_swc(path)
+        try:
+            morph = read_swc(path, repairs=repairs)
+        except MorphologyError as exc:
+            if "Repairs(" not in str(exc):
+                raise
+            raise MorphologyError(
+                f"{exc}\n(here: the check options --soma-radius-um, --infer-soma-radius, "
+                "--min-radius-um, --merge-zero-length, --radius-is-diameter; in a scenario "
+                "file: a [morphology.repairs] table with the same names, e.g. "
+                "soma_radius_um = 10.0)") from None
     _say(f"{path}: valid SWC morphology")
     _say(format_summary(summarize(morph)))
     for w in caught:
@@ -186,6 +200,17 @@ def _add_check(sub) -> None:
                        description="Check an SWC file or a scenario (.toml) and print a report; "
                                    "exit status 1 when the file is invalid.")
     p.add_argument("file", help="SWC file or scenario file (.toml)")
+    rep = p.add_argument_group("repairs of an SWC file (off unless given; each is reported)")
+    rep.add_argument("--soma-radius-um", type=float, default=None, metavar="R",
+                     help="use this soma radius, µm (e.g. for a zero-radius single-point soma)")
+    rep.add_argument("--infer-soma-radius", action="store_true",
+                     help="infer a missing soma radius from the stems (capped)")
+    rep.add_argument("--min-radius-um", type=float, default=None, metavar="R",
+                     help="raise every neurite radius below R to R, µm")
+    rep.add_argument("--merge-zero-length", action="store_true",
+                     help="merge samples that coincide with their parent")
+    rep.add_argument("--radius-is-diameter", action="store_true",
+                     help="the radius column holds diameters: halve it")
     p.set_defaults(func=_cmd_check)
 
 
