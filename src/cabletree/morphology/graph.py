@@ -21,7 +21,7 @@ import numpy as np
 
 from .geometry import segment_vectors_um
 from .samples import Morphology
-from .tree import branches, is_soma_sample
+from .tree import branches, is_soma_sample, neurite_child_counts
 
 __all__ = ["to_graph", "neurite_child_counts", "branch_points", "terminals", "branch_order"]
 
@@ -54,22 +54,6 @@ def to_graph(morph: Morphology) -> nx.DiGraph:
         for i, p in enumerate(morph.parent_index.tolist()) if p >= 0
     )
     return graph
-
-
-def neurite_child_counts(morph: Morphology) -> np.ndarray:
-    """Number of neurite (non-soma) children of every sample.
-
-    Parameters
-    ----------
-    morph : Morphology
-
-    Returns
-    -------
-    ndarray of int, shape (n_samples,)
-    """
-    soma = is_soma_sample(morph)
-    kids = np.nonzero(~soma & (morph.parent_index >= 0))[0]
-    return np.bincount(morph.parent_index[kids], minlength=morph.n_samples)
 
 
 def branch_points(morph: Morphology) -> np.ndarray:

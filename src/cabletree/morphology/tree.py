@@ -21,7 +21,7 @@ import numpy as np
 from .samples import Morphology
 from .soma import soma_mask
 
-__all__ = ["Branch", "branches", "path_distance_um", "is_soma_sample"]
+__all__ = ["Branch", "branches", "path_distance_um", "is_soma_sample", "neurite_child_counts"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -72,6 +72,22 @@ def is_soma_sample(morph: Morphology) -> np.ndarray:
     return soma_mask(morph.swc_type, morph.parent_index)
 
 
+def neurite_child_counts(morph: Morphology) -> np.ndarray:
+    """Number of neurite (non-soma) children of every sample.
+
+    Parameters
+    ----------
+    morph : Morphology
+
+    Returns
+    -------
+    ndarray of int, shape (n_samples,)
+    """
+    soma = is_soma_sample(morph)
+    kids = np.nonzero(~soma & (morph.parent_index >= 0))[0]
+    return np.bincount(morph.parent_index[kids], minlength=morph.n_samples)
+
+
 def path_distance_um(morph: Morphology) -> np.ndarray:
     """Path distance of every sample from the soma centre, µm.
 
@@ -116,10 +132,7 @@ def branches(morph: Morphology) -> tuple[Branch, ...]:
     parent = morph.parent_index
     types = morph.swc_type
     n = morph.n_samples
-    n_neurite_children = np.zeros(n, dtype=int)
-    for i in range(1, n):
-        if not soma[i]:
-            n_neurite_children[parent[i]] += 1
+    n_neurite_children = neurite_child_counts(morph)
     children = morph.children()
 
     def starts_branch(i: int) -> bool:
