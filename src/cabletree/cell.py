@@ -198,6 +198,16 @@ class CellModel:
         """Number of compartments."""
         return self.grid.n_compartments
 
+    @property
+    def axial_diagonal_uS(self) -> np.ndarray:
+        """Sum of the axial conductances at each compartment (to its parent and children), µS.
+
+        The diagonal of the axial part of the tree matrix; its off-diagonal entries are
+        ``-axial_conductance_uS`` between each compartment and its parent.
+        """
+        g = self.axial_conductance_uS
+        return g + np.bincount(self.grid.parent[1:], g[1:], minlength=self.n_compartments)
+
     def breakpoints_ms(self) -> np.ndarray:
         """Sorted times where an injected current jumps, ms."""
         pts = [t for inj in self.injections for t in inj.waveform.breakpoints_ms()]

@@ -53,7 +53,6 @@ import math
 import os
 import sys
 import types as pytypes
-from collections import namedtuple
 
 import numba
 import numpy as np
@@ -660,10 +659,9 @@ class CompiledStepper:
         self.cell = cell
         self.threads = int(threads)
         grid = cell.grid
-        n = grid.n_compartments
         g = np.ascontiguousarray(cell.axial_conductance_uS, dtype=float)
         self.offdiag = -g
-        self.axial_diag = g + np.bincount(grid.parent[1:], g[1:], minlength=n)
+        self.axial_diag = cell.axial_diagonal_uS
         self.parent = np.ascontiguousarray(grid.parent, dtype=np.int64)
         self.leak_g = np.ascontiguousarray(cell.leak_uS, dtype=float)
         self.leak_j = self.leak_g * cell.leak_reversal_mV

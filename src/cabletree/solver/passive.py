@@ -72,7 +72,7 @@ def conductance_matrix(cell: CellModel, holding_mV: float = -65.0) -> sp.csr_mat
 def _tree_solve(cell: CellModel, g_mem: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     grid = cell.grid
     ga = cell.axial_conductance_uS
-    diag = g_mem + ga + np.bincount(grid.parent[1:], ga[1:], minlength=grid.n_compartments)
+    diag = g_mem + cell.axial_diagonal_uS
     return TreeMatrix(grid.parent, grid.level_bounds()).solve(diag, -ga, rhs)
 
 

@@ -265,11 +265,10 @@ class ReferenceStepper:
     def __init__(self, cell: CellModel):
         self.cell = cell
         grid = cell.grid
-        n = grid.n_compartments
         g = cell.axial_conductance_uS
         self.offdiag = -g
         self.tree = BranchSchurSolver(grid.parent, self.offdiag)
-        self.axial_diag = g + np.bincount(grid.parent[1:], g[1:], minlength=n)
+        self.axial_diag = cell.axial_diagonal_uS
         self.leak_current_nA = cell.leak_uS * cell.leak_reversal_mV
         self.blocks = []
         for block in cell.channels:
@@ -370,7 +369,6 @@ class ReferenceStepper:
 
     def _step(self, t, v, gates, lag, syn, h, mode, current, step, halves):
         """One backward-Euler (mode 'be') or staggered CN ('cn') step of size h."""
-        n = v.size
         G = self.cell.leak_uS.copy()
         J = self.leak_current_nA.copy()
         if mode == "cn":
