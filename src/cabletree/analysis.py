@@ -25,9 +25,8 @@ from __future__ import annotations
 import csv
 import io
 import os
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import xarray as xr

@@ -22,7 +22,6 @@ function in that tuple.
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 import time
 from pathlib import Path

@@ -10,7 +10,7 @@ one event has a conductance whose maximum is ``w``.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 

@@ -37,7 +37,7 @@ Biomed Eng 25:389-392) integration, exact for a voltage frozen over the step.
 from __future__ import annotations
 
 from collections import namedtuple
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from functools import cached_property
 from typing import Any, Callable
 
