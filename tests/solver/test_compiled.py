@@ -79,6 +79,35 @@ def test_passive_branched_tree_with_step_current():
     _agree(ref.v_mV, comp.v_mV)
 
 
+@pytest.mark.parametrize("method,smoothing", [("backward_euler", 0), ("crank_nicolson", 0),
+                                              ("crank_nicolson", 2)])
+def test_passive_factored_once_matches_reference(method, smoothing):
+    # no channels, no synapses: the kernel keeps one factorisation per step size
+    # (half steps of the smoothing, then full steps) and reuses it; the reference
+    # refactors every step
+    cell = _passive_cell()
+    cell = cell.with_inputs(injections=[CurrentInjection(soma_site(cell.grid),
+                                                         StepCurrent(0.2, 1.0, 3.0))])
+    settings = RunSettings(8.0, 0.05, method=method, smoothing=smoothing)
+    ref, comp = _both(cell, settings)
+    _agree(ref.v_mV, comp.v_mV)
+    chunked = simulate(cell, settings, backend="compiled", progress=lambda *a: None,
+                       progress_chunks=4)
+    _agree(ref.v_mV, chunked.v_mV)
+
+
+def test_passive_with_synapse_refactors_each_step():
+    # a synapse changes the matrix every step, so the one-factorisation path is
+    # not taken; both paths must give the reference answer
+    cell = _passive_cell()
+    tip = Site("tip", cell.n_compartments - 1)
+    cell = cell.with_inputs(synapses=[SynapseGroup.from_synapses(
+        AMPA, [tip], [2.0], [explicit_events([1.0, 2.0])])])
+    ref, comp = _both(cell, RunSettings(8.0, 0.025))
+    assert np.ptp(ref.v_mV) > 0.5
+    _agree(ref.v_mV, comp.v_mV)
+
+
 @pytest.mark.parametrize("method", ["crank_nicolson", "backward_euler"])
 def test_hh_tree_with_current_steps(method):
     cell = _hh_cell()

@@ -11,7 +11,9 @@ compiled loops over compartments:
 - the tree system is solved by Gaussian elimination from the leaves to the
   root and back-substitution in depth order (Hines 1984, Int J Biomed Comput
   15:69-76): with compartments numbered by depth, ``parent[i] < i`` and a single
-  backward sweep followed by a forward sweep is exact;
+  backward sweep followed by a forward sweep is exact; a cell without channels
+  or synapses has the same matrix at every step of a given size, so it is
+  factored once and each step eliminates only the right-hand side;
 - the potential at the requested sites is written into a preallocated array and
   a NaN or runaway potential stops the loop, reported with its time and
   compartment.
@@ -336,8 +338,9 @@ def gates_and_currents(v, dt_gate, G, J, celsius{block_params}):
 
 
 @numba.njit(**_JIT)
-def substep(v, v_out, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
-            cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r,
+def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
+            cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r, limit,
+            fixed_matrix, mult, factor_rheff,
             inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
             sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
             celsius{block_params}):
@@ -394,36 +397,52 @@ def substep(v, v_out, h, cn, dt_gate, inj_row, first_half, second_half, step, dt
     for q in range(inj_comp.size):
         J[inj_comp[q]] += inj_row[q]
     rheff = 2.0 / h if cn else 1.0 / h
-    for i in range(n):
-        c = cap[i] * rheff
-        d[i] = c + G[i] + axial_diag[i]
-        r[i] = c * v[i] + J[i]
-        G[i] = leak_g[i]
-        J[i] = leak_j[i]
-    # elimination; d[i] is final when i is reached, so its reciprocal replaces it
-    # and the back-substitution multiplies instead of dividing again
-    for i in range(n - 1, 0, -1):
-        p = parent[i]
-        rd = 1.0 / d[i]
-        d[i] = rd
-        f = offdiag[i] * rd
-        d[p] -= f * offdiag[i]
-        r[p] -= f * r[i]
-    v_out[0] = r[0] / d[0]
-    for i in range(1, n):
-        v_out[i] = (r[i] - offdiag[i] * v_out[parent[i]]) * d[i]
-    # the new potential (Crank-Nicolson: extrapolated from the half step)
-    if cn:
+    if fixed_matrix and rheff == factor_rheff[0]:
+        # the matrix is the same as at the last factorisation: eliminate the
+        # right-hand side only, with the stored multipliers and pivots
         for i in range(n):
-            v[i] = 2.0 * v_out[i] - v[i]
+            r[i] = cap[i] * rheff * v[i] + J[i]
+        for q in range(inj_comp.size):  # only these entries of J left the leak
+            J[inj_comp[q]] = leak_j[inj_comp[q]]
+        for i in range(n - 1, 0, -1):
+            r[parent[i]] -= mult[i] * r[i]
     else:
         for i in range(n):
-            v[i] = v_out[i]
-    return 0
+            c = cap[i] * rheff
+            d[i] = c + G[i] + axial_diag[i]
+            r[i] = c * v[i] + J[i]
+            G[i] = leak_g[i]
+            J[i] = leak_j[i]
+        # elimination; d[i] is final when i is reached, so its reciprocal replaces
+        # it and the back-substitution multiplies instead of dividing again
+        for i in range(n - 1, 0, -1):
+            p = parent[i]
+            rd = 1.0 / d[i]
+            d[i] = rd
+            f = offdiag[i] * rd
+            mult[i] = f
+            d[p] -= f * offdiag[i]
+            r[p] -= f * r[i]
+        d[0] = 1.0 / d[0]
+        factor_rheff[0] = rheff
+    # back-substitution from the root, with the new potential (Crank-Nicolson:
+    # extrapolated from the half step) and the count of NaN or runaway values
+    vo = r[0] * d[0]
+    r[0] = vo  # r[i] is spent once v_out(i) is known: it holds v_out from here on
+    vn = 2.0 * vo - v[0] if cn else vo
+    v[0] = vn
+    n_bad = 0 if abs(vn) <= limit else 1  # NaN counts as bad
+    for i in range(1, n):
+        vo = (r[i] - offdiag[i] * r[parent[i]]) * d[i]
+        r[i] = vo
+        vn = 2.0 * vo - v[i] if cn else vo
+        v[i] = vn
+        n_bad += 0 if abs(vn) <= limit else 1
+    return n_bad
 
 
 @numba.njit(**_JIT_CACHE)
-def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0,
+def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matrix,
         cap, leak_g, leak_j, axial_diag, offdiag, parent, v, records, record_index,
         inj_comp, inj_mid, inj_end,
         syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight, sa, sb,
@@ -434,7 +453,8 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0,
     J = leak_j.copy()
     d = np.empty(n)
     r = np.empty(n)
-    w = np.empty(n)
+    mult = np.empty(n)
+    factor_rheff = np.full(1, np.nan)  # h-factor of the stored factorisation (none yet)
     sa_old = np.empty(sa.size)
     sb_old = np.empty(sa.size)
     lag = lag0
@@ -471,15 +491,13 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0,
                 new_lag = 0.0
             ea = ea_full if h == dt else ea_half
             eb = eb_full if h == dt else eb_half
-            substep(v, w, h, cn, dt_gate, inj_row, first_half, second_half, k, dt,
+            n_bad = substep(v, h, cn, dt_gate, inj_row, first_half, second_half, k, dt,
                     cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r,
+                    limit, fixed_matrix, mult, factor_rheff,
                     inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                     sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
                     celsius{block_args})
             lag = new_lag
-        n_bad = 0
-        for i in range(n):
-            n_bad += 0 if abs(v[i]) <= limit else 1  # NaN counts as bad
         if n_bad > 0:
             bad = 0
             while abs(v[bad]) <= limit:
@@ -680,6 +698,9 @@ class CompiledStepper:
                 np.ascontiguousarray(block.reversal_mV, dtype=float),
                 float(block.channel.temperature_factor(cell.celsius))))
         self.contiguous = tuple(bs[2] for bs in self.block_static)
+        # without channels or synapses the matrix changes only with the step size,
+        # so the kernel factors it once and then eliminates right-hand sides only
+        self.fixed_matrix = not cell.channels and not cell.synapses
         self._kernel = None
         self.n_steps_done = 0
 
@@ -728,6 +749,7 @@ class CompiledStepper:
         args = (sched.n_steps, float(dt), settings.method == "crank_nicolson",
                 np.ascontiguousarray(sched.smoothing, dtype=np.bool_),
                 float(settings.max_abs_v_mV), int(sched.record_every), float(state.gate_lag_ms),
+                self.fixed_matrix,
                 self.cap, self.leak_g, self.leak_j, self.axial_diag, self.offdiag, self.parent,
                 v, records, rec_idx,
                 np.ascontiguousarray(sched.injection_compartment, dtype=np.int64), inj_mid, inj_end,
