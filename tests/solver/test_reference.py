@@ -66,3 +66,33 @@ def _depth(parent):
         depth[i] = depth[parent[i]] + 1
     assert np.all(np.diff(depth) >= 0)  # depth-ordered, as the grid stores them
     return depth
+
+
+@pytest.mark.parametrize("name,parent", list(_parents()))
+def test_schur_solver_reuses_its_factorisation_only_for_the_same_diagonal(name, parent):
+    # reference: the same Hines (1984) level elimination, solved afresh each time
+    levels = np.concatenate([[0], np.cumsum(np.bincount(_depth(parent)))]).astype(np.int64)
+    d, b, r = _system(parent, 0)
+    _, _, r2 = _system(parent, 1)
+    d2 = d + np.random.default_rng(1).uniform(0.0, 0.3, d.size)  # still diagonally dominant
+    solver = BranchSchurSolver(parent, b)
+    tree = TreeMatrix(parent, levels)
+    work = d.copy()  # the caller may refill the same array between calls
+    for diag, rhs in ((d, r), (d, r2), (d2, r2), (d2, r), (d, r)):
+        work[:] = diag
+        x = solver.solve(work, b, rhs)
+        x_tree = tree.solve(diag, b, rhs)
+        assert np.max(np.abs(x - x_tree)) <= 1e-12 * np.max(np.abs(x_tree))
+
+
+def test_tree_matrix_factor_then_solve_equals_solve():
+    # reference: TreeMatrix.solve, which factors and solves in one call
+    parent = build_grid(synthetic.random_tree(30, seed=4, samples_per_branch=3)).parent
+    levels = np.concatenate([[0], np.cumsum(np.bincount(_depth(parent)))]).astype(np.int64)
+    d, b, r = _system(parent, 2)
+    tree = TreeMatrix(parent, levels)
+    factors = tree.factor(d, b)
+    d_before, r_before = d.copy(), r.copy()
+    for rhs in (r, 2.0 * r - 1.0):
+        assert np.array_equal(tree.solve_factored(factors, b, rhs), tree.solve(d, b, rhs))
+    assert np.array_equal(d, d_before) and np.array_equal(r, r_before)  # inputs untouched

@@ -42,6 +42,12 @@ class TreeMatrix:
         Parent index, ``parent[i] < i``, -1 for the root; stored by depth.
     level_bounds : ndarray of int64
         Start of each depth level (see :meth:`cabletree.grid.Grid.level_bounds`).
+
+    Notes
+    -----
+    :meth:`factor` eliminates the diagonal from the leaves to the root once;
+    :meth:`solve_factored` then needs only the right-hand side, so a matrix whose
+    diagonal does not change is factored once for many solves.
     """
 
     def __init__(self, parent: np.ndarray, level_bounds: np.ndarray):
@@ -53,8 +59,8 @@ class TreeMatrix:
             ps, pe = int(level_bounds[lev - 1]), int(level_bounds[lev])
             self.levels.append((s, e, ps, pe, parent[s:e] - ps))
 
-    def solve(self, d: np.ndarray, b: np.ndarray, r: np.ndarray) -> np.ndarray:
-        """Solve ``A x = r`` in place of copies of ``d`` and ``r``.
+    def factor(self, d: np.ndarray, b: np.ndarray):
+        """Eliminate the diagonal from the leaves to the root.
 
         Parameters
         ----------
@@ -62,6 +68,54 @@ class TreeMatrix:
             Diagonal.
         b : ndarray, shape (n,)
             Coupling of each compartment to its parent (``b[0]`` unused).
+
+        Returns
+        -------
+        (d_eliminated, multipliers) : (ndarray of shape (n,), list of ndarray)
+            The eliminated diagonal and, per level (deepest first), ``b / d``.
+        """
+        d = d.copy()
+        multipliers = []
+        for s, e, ps, pe, local in reversed(self.levels):
+            f = b[s:e] / d[s:e]
+            d[ps:pe] -= np.bincount(local, f * b[s:e], minlength=pe - ps)
+            multipliers.append(f)
+        return d, multipliers
+
+    def solve_factored(self, factors, b: np.ndarray, r: np.ndarray) -> np.ndarray:
+        """Solve ``A x = r`` with the result of :meth:`factor`.
+
+        Parameters
+        ----------
+        factors : tuple
+            What :meth:`factor` returned for this matrix.
+        b : ndarray, shape (n,)
+            Coupling given to :meth:`factor`.
+        r : ndarray, shape (n,)
+            Right-hand side (not modified).
+
+        Returns
+        -------
+        ndarray, shape (n,)
+        """
+        d, multipliers = factors
+        r = r.copy()
+        for (s, e, ps, pe, local), f in zip(reversed(self.levels), multipliers):
+            r[ps:pe] -= np.bincount(local, f * r[s:e], minlength=pe - ps)
+        x = np.empty_like(r)
+        x[0] = r[0] / d[0]
+        parent = self.parent
+        for s, e, _, _, _ in self.levels:
+            x[s:e] = (r[s:e] - b[s:e] * x[parent[s:e]]) / d[s:e]
+        return x
+
+    def solve(self, d: np.ndarray, b: np.ndarray, r: np.ndarray) -> np.ndarray:
+        """Solve ``A x = r``: :meth:`factor`, then :meth:`solve_factored` (inputs unchanged).
+
+        Parameters
+        ----------
+        d, b : ndarray, shape (n,)
+            Diagonal and coupling to the parent, as for :meth:`factor`.
         r : ndarray, shape (n,)
             Right-hand side.
 
@@ -69,19 +123,7 @@ class TreeMatrix:
         -------
         ndarray, shape (n,)
         """
-        d = d.copy()
-        r = r.copy()
-        for s, e, ps, pe, local in reversed(self.levels):
-            f = b[s:e] / d[s:e]
-            m = pe - ps
-            d[ps:pe] -= np.bincount(local, f * b[s:e], minlength=m)
-            r[ps:pe] -= np.bincount(local, f * r[s:e], minlength=m)
-        x = np.empty_like(r)
-        x[0] = r[0] / d[0]
-        parent = self.parent
-        for s, e, _, _, _ in self.levels:
-            x[s:e] = (r[s:e] - b[s:e] * x[parent[s:e]]) / d[s:e]
-        return x
+        return self.solve_factored(self.factor(d, b), b, r)
 
 
 class BranchSchurSolver:
@@ -104,11 +146,18 @@ class BranchSchurSolver:
     ``U0 = A_II⁻¹ e_first``, ``U1 = A_II⁻¹ e_last`` and ``z = A_II⁻¹ r_I`` (one
     ``dptsv`` call), the Schur complement ``S = A_BB - A_BI A_II⁻¹ A_IB`` couples
     each ``E`` only to its ``P``, so ``S`` is a tree matrix on ``B``.
+
+    ``U0``, ``U1``, ``S`` and the factorisations depend on the diagonal only: they
+    are computed by :meth:`factor` and reused by :meth:`solve` for as long as the
+    diagonal stays the same (a passive cell at a fixed step), so such a solve
+    costs one tridiagonal back-substitution with one right-hand side plus the
+    tree of branch points.  ``dptsv`` is ``dpttrf`` followed by ``dpttrs``, so
+    splitting them changes nothing in the arithmetic.
     """
 
     def __init__(self, parent: np.ndarray, offdiag: np.ndarray):
         from scipy.linalg import lapack
-        self._dptsv = lapack.dptsv
+        self._dpttrf, self._dpttrs = lapack.dpttrf, lapack.dpttrs
         parent = np.asarray(parent, dtype=np.int64)
         n = parent.size
         self.n = n
@@ -117,11 +166,9 @@ class BranchSchurSolver:
         is_b = nchild >= 2
         is_b[0] = True
         only_child = np.full(n, -1, dtype=np.int64)
-        one = np.nonzero(nchild == 1)[0]
         kids = np.arange(1, n)
         single = nchild[parent[1:]] == 1
         only_child[parent[1:][single]] = kids[single]
-        del one
         heads = np.nonzero(~is_b & np.concatenate([[False], is_b[parent[1:]]]))[0]
         order, chain_of, pos_head, pos_tail, below = [], [], [], [], []
         for c, h in enumerate(heads):  # walk each chain once (setup only)
@@ -158,7 +205,7 @@ class BranchSchurSolver:
         rhs_unit = np.zeros((m, 2))
         rhs_unit[pos_head, 0] = 1.0
         rhs_unit[pos_tail[has_e], 1] = 1.0
-        self._unit = rhs_unit
+        self._unit = np.asfortranarray(rhs_unit)
         # per-position chain data for the back-substitution
         self.pos_top = self.chain_top[chain_of] if m else np.zeros(0, np.int64)
         self.pos_beta_top = self.beta_top[chain_of] if m else np.zeros(0)
@@ -188,62 +235,84 @@ class BranchSchurSolver:
         bounds = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
         self.btree = TreeMatrix(lparent, bounds)
         self.b = b
+        # index sets and coefficient products of the Schur update, computed once
+        self._top = local[self.chain_top]
+        self._bottom = local[self.chain_bottom]
+        self._tail_e = pos_tail[self.e_chains]
+        self._head_e = pos_head[self.e_chains]
+        self._bt2 = self.beta_top * self.beta_top
+        self._be2 = self.beta_bottom * self.beta_bottom
+        self._bt_be = -self.beta_top[self.e_chains] * self.beta_bottom
+        self._direct_local = local[direct]
+        self._factored_d = None
 
-    def solve(self, d: np.ndarray, b: np.ndarray, r: np.ndarray) -> np.ndarray:
-        """Solve ``A x = r`` (``b`` must be the coupling given at construction).
+
+    def _factor_chains(self, d_interior: np.ndarray):
+        """``L D L^T`` factors of the chains' tridiagonal block (LAPACK ``dpttrf``)."""
+        m = d_interior.size
+        if m == 1:  # LAPACK's wrapper cannot take the empty off-diagonal of a 1×1 system
+            dd, ee, info = d_interior, self.e, (0 if d_interior[0] > 0 else 1)
+        else:
+            dd, ee, info = self._dpttrf(d_interior, self.e, overwrite_d=1)
+        if info != 0:
+            raise NumericalInstabilityError(
+                f"the chain system is not positive definite (LAPACK dpttrf info={info}); "
+                "the membrane or axial conductances are not physical", time_ms=float("nan"),
+                compartment=int(self.interior[min(abs(info), m) - 1]))
+        return dd, ee
+
+    def _solve_chains(self, rhs: np.ndarray) -> np.ndarray:
+        """``A_II⁻¹ rhs`` with the factors of the last :meth:`factor` (LAPACK ``dpttrs``)."""
+        dd, ee = self._chains
+        if dd.size == 1:
+            return rhs / dd[0]
+        return self._dpttrs(dd, ee, rhs)[0]
+
+    def factor(self, d: np.ndarray, b: np.ndarray) -> None:
+        """Factor the chains and the Schur complement for diagonal ``d``.
 
         Parameters
         ----------
         d : ndarray, shape (n,)
             Diagonal.
         b : ndarray, shape (n,)
-            Coupling of each compartment to its parent (``b[0]`` unused).
-        r : ndarray, shape (n,)
-            Right-hand side.
-
-        Returns
-        -------
-        ndarray, shape (n,)
+            Coupling of each compartment to its parent (``b[0]`` unused), the one
+            given at construction.
         """
-        loc = self.local
-        nb = self.bnodes.size
-        dS = d[self.bnodes].copy()
-        rS = r[self.bnodes].copy()
-        offS = np.zeros(nb)
-        offS[loc[self.direct]] = b[self.direct]
+        dS = d[self.bnodes]
+        offS = np.zeros(self.bnodes.size)
+        offS[self._direct_local] = b[self.direct]
+        if self.interior.size:
+            self._chains = self._factor_chains(d[self.interior])
+            u = self._solve_chains(self._unit)
+            self._u0, self._u1 = u[:, 0], u[:, 1]
+            np.subtract.at(dS, self._top, self._bt2 * self._u0[self.head_pos])
+            dS[self._bottom] -= self._be2 * self._u1[self._tail_e]
+            offS[self._bottom] = self._bt_be * self._u1[self._head_e]
+        self._offS = offS
+        self._btree_factors = self.btree.factor(dS, offS)
+        self._factored_d = d.copy()
+
+    def solve(self, d: np.ndarray, b: np.ndarray, r: np.ndarray) -> np.ndarray:
+        """Solve ``A x = r``: arguments and result as in :meth:`TreeMatrix.solve`.
+
+        ``b`` must be the coupling given at construction; the factorisation of
+        the last call is reused when ``d`` is unchanged.
+        """
+        if self._factored_d is None or not np.array_equal(d, self._factored_d):
+            self.factor(d, b)
+        rS = r[self.bnodes]
         m = self.interior.size
         if m:
-            rhs = np.empty((m, 3))
-            rhs[:, :2] = self._unit
-            rhs[:, 2] = r[self.interior]
-            if m == 1:  # LAPACK's wrapper cannot take the empty off-diagonal of a 1×1 system
-                d1 = d[self.interior]
-                sol, info = rhs / d1[:, None], (0 if d1[0] > 0 else 1)
-            else:
-                _, _, sol, info = self._dptsv(d[self.interior], self.e, rhs)
-            if info != 0:
-                raise NumericalInstabilityError(
-                    f"the chain system is not positive definite (LAPACK dptsv info={info}); "
-                    "the membrane or axial conductances are not physical", time_ms=float("nan"),
-                    compartment=int(self.interior[min(abs(info), m) - 1]))
-            u0, u1, z = sol[:, 0], sol[:, 1], sol[:, 2]
-            hp, tp = self.head_pos, self.tail_pos
-            top = loc[self.chain_top]
-            bt = self.beta_top
-            np.subtract.at(dS, top, bt * bt * u0[hp])
-            np.subtract.at(rS, top, bt * z[hp])
-            ec = self.e_chains
-            bottom = loc[self.chain_bottom]
-            be = self.beta_bottom
-            dS[bottom] -= be * be * u1[tp[ec]]
-            rS[bottom] -= be * z[tp[ec]]
-            offS[bottom] = -bt[ec] * be * u1[hp[ec]]
-        y = self.btree.solve(dS, offS, rS)
+            z = self._solve_chains(r[self.interior])
+            np.subtract.at(rS, self._top, self.beta_top * z[self.head_pos])
+            rS[self._bottom] -= self.beta_bottom * z[self._tail_e]
+        y = self.btree.solve_factored(self._btree_factors, self._offS, rS)
         x = np.empty(self.n)
         x[self.bnodes] = y
         if m:
-            x[self.interior] = (z - self.pos_beta_top * x[self.pos_top] * u0
-                                - self.pos_beta_bottom * x[self.pos_bottom] * u1)
+            x[self.interior] = (z - self.pos_beta_top * x[self.pos_top] * self._u0
+                                - self.pos_beta_bottom * x[self.pos_bottom] * self._u1)
         return x
 
 
