@@ -12,7 +12,13 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
+from cabletree.cell import CurrentInjection, build_cell
+from cabletree.channels import hh_potassium, hh_sodium
 from cabletree.grid import build_grid
+from cabletree.inputs import StepCurrent
+from cabletree.profiles import ChannelPlacement
+from cabletree.sites import soma_site
+from cabletree.solver import RunSettings, simulate
 from cabletree.morphology import synthetic
 from cabletree.solver.reference import BranchSchurSolver, TreeMatrix
 
@@ -96,3 +102,26 @@ def test_tree_matrix_factor_then_solve_equals_solve():
     for rhs in (r, 2.0 * r - 1.0):
         assert np.array_equal(tree.solve_factored(factors, b, rhs), tree.solve(d, b, rhs))
     assert np.array_equal(d, d_before) and np.array_equal(r, r_before)  # inputs untouched
+
+
+def test_injections_into_one_compartment_add_up():
+    # reference: superposition of injected currents (Kirchhoff's current law at the
+    # compartment): 0.25 nA + 0.5 nA + 0.25 nA (staggered onsets) into the soma acts
+    # like their sum
+    cell = build_cell(synthetic.random_tree(6, seed=3),
+                      channels=[ChannelPlacement(hh_sodium, 0.12),
+                                ChannelPlacement(hh_potassium, 0.036)])
+    soma = soma_site(cell.grid)
+    split = cell.with_inputs(injections=[CurrentInjection(soma, StepCurrent(0.25, 0.5, 5.0)),
+                                         CurrentInjection(soma, StepCurrent(0.5, 0.5, 5.0)),
+                                         CurrentInjection(soma, StepCurrent(0.25, 1.0, 5.0))],
+                             recording_sites=[soma])
+    joined = cell.with_inputs(injections=[CurrentInjection(soma, StepCurrent(0.75, 0.5, 0.5)),
+                                          CurrentInjection(soma, StepCurrent(1.0, 1.0, 4.5)),
+                                          CurrentInjection(soma, StepCurrent(0.25, 5.5, 0.5))],
+                              recording_sites=[soma])
+    settings = RunSettings(8.0, 0.025)
+    a = simulate(split, settings, backend="reference").v_mV
+    b = simulate(joined, settings, backend="reference").v_mV
+    assert np.max(a) > 0.0  # the drive fires a spike, so the comparison is not trivial
+    assert np.max(np.abs(a - b)) <= 1e-9 * np.max(np.abs(b))

@@ -355,6 +355,10 @@ class ReferenceStepper:
             self.synapse_groups.append((grp, taus, scale))
         self.n_steps_done = 0
         self.n_solves = 0
+        n = cell.n_compartments
+        # work arrays reused every step (the tree solver copies what it keeps)
+        self._G, self._J, self._d, self._r, self._abs_v = (np.empty(n) for _ in range(5))
+        self._c_over_h = {}
 
     # -- pieces of one step ---------------------------------------------------
     def _advance_gates(self, v, gates, dt_gate, G, J):
@@ -430,16 +434,23 @@ class ReferenceStepper:
             np.add.at(J, grp.compartment, g * k.reversal_mV)
 
     def _implicit(self, v, h_eff, G, J):
-        c = self.cell.capacitance_nF / h_eff
-        d = c + G + self.axial_diag
-        r = c * v + J
+        """Backward-Euler potential after ``h_eff``: solve ``(C/h + G + A) v' = C v / h + J``."""
+        c = self._c_over_h.get(h_eff)
+        if c is None:
+            c = self._c_over_h[h_eff] = self.cell.capacitance_nF / h_eff
+        d = np.add(c, G, out=self._d)
+        d += self.axial_diag
+        r = np.multiply(c, v, out=self._r)
+        r += J
         self.n_solves += 1
         return self.tree.solve(d, self.offdiag, r)
 
     def _step(self, t, v, gates, lag, syn, h, mode, current, step, halves):
         """One backward-Euler (mode 'be') or staggered CN ('cn') step of size h."""
-        G = self.cell.leak_uS.copy()
-        J = self.leak_current_nA.copy()
+        G = self._G
+        J = self._J
+        np.copyto(G, self.cell.leak_uS)
+        np.copyto(J, self.leak_current_nA)
         if mode == "cn":
             gates = self._advance_gates(v, gates, h / 2 + lag, G, J)
             new_lag = h / 2
@@ -454,21 +465,21 @@ class ReferenceStepper:
             else:
                 self._synapse_conductance(syn_new, v, G, J)
         if current is not None:
-            J += current
+            J[self._injected] += np.bincount(self._injection_slot, current,
+                                             minlength=self._injected.size)
         if mode == "cn":
-            v_half = self._implicit(v, h / 2, G, J)
-            v_new = 2.0 * v_half - v
+            v_new = self._implicit(v, h / 2, G, J)
+            v_new *= 2.0
+            v_new -= v
         else:
             v_new = self._implicit(v, h, G, J)
         return v_new, gates, new_lag, syn_new
 
     def _injection_vector(self, sched: StepSchedule, k: int, which: str):
+        """Injected currents of step ``k`` (nA, one per injection), or None without any."""
         if sched.injection_compartment.size == 0:
             return None
-        vec = np.zeros(self.cell.n_compartments)
-        vals = sched.injection_mid_nA[k] if which == "mid" else sched.injection_end_nA[k]
-        np.add.at(vec, sched.injection_compartment, vals)
-        return vec
+        return sched.injection_mid_nA[k] if which == "mid" else sched.injection_end_nA[k]
 
     def run(self, settings: RunSettings, sched: StepSchedule, state: SolverState,
             record_index: np.ndarray):
@@ -479,6 +490,9 @@ class ReferenceStepper:
         (v_records, final_state) : (ndarray of shape (n_records, n_sites), SolverState)
         """
         self._dt = sched.dt_ms
+        # injections summed per compartment in their order (as np.add.at would)
+        self._injected, self._injection_slot = np.unique(sched.injection_compartment,
+                                                         return_inverse=True)
         steps_all = np.arange(sched.n_steps)
         self._event_lo, self._event_hi = [], []
         self._events_offset, self._events_half, self._events_synapse = [], [], []
@@ -518,9 +532,8 @@ class ReferenceStepper:
                                                 self._injection_vector(sched, k, "end"), k,
                                                 (True, True))
             t = sched.t0_ms + (k + 1) * dt
-            bad = ~(np.abs(v) <= limit)
-            if bad.any():
-                c = int(np.argmax(bad))
+            if not np.abs(v, out=self._abs_v).max() <= limit:  # NaN fails too
+                c = int(np.argmax(~(np.abs(v) <= limit)))
                 raise NumericalInstabilityError(
                     f"membrane potential {float(v[c])!r} mV at compartment {c} (path distance "
                     f"{self.cell.grid.path_distance_um[c]:.1f} µm) at t = {t:.6g} ms is NaN or "
