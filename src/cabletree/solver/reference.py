@@ -359,40 +359,39 @@ class ReferenceStepper:
         # work arrays reused every step (the tree solver copies what it keeps)
         self._G, self._J, self._d, self._r, self._abs_v = (np.empty(n) for _ in range(5))
         self._c_over_h = {}
+        self._g = [np.empty(block.index.size) for block in cell.channels]
 
     # -- pieces of one step ---------------------------------------------------
     def _advance_gates(self, v, gates, dt_gate, G, J):
-        """Gates after ``dt_gate`` (Rush-Larsen); adds the channel conductances to G, J.
+        """Gates after ``dt_gate`` (Rush-Larsen), updated in place; adds the channel conductances to G, J.
 
         Rate gates use ``exp(-dt phi (alpha + beta))`` and the open fraction is a
         product of repeated multiplications, the arithmetic of the compiled kernel.
         """
-        out = []
         celsius = self.cell.celsius
-        for (block, where, p, phi), x in zip(self.blocks, gates):
+        for (block, where, p, phi), x, g in zip(self.blocks, gates, self._g):
             vb = v[where]
-            new = np.empty_like(x)
-            g = block.gmax_uS.copy()
+            np.copyto(g, block.gmax_uS)
             for j, gate in enumerate(block.channel.gates):
                 dt_eff = dt_gate * (phi if gate.temperature_scaled else 1.0)
                 if gate.uses_rates:
                     a = gate.alpha(vb, celsius, p)
                     s = a + gate.beta(vb, celsius, p)
                     inf = a / s
-                    e = np.exp(np.multiply(s, -dt_eff, out=s))
-                else:
+                    e = np.exp(np.multiply(s, -dt_eff, out=s), out=s)
+                else:  # tau may be a constant: no in-place update of it
                     inf = gate.steady_state(vb, celsius, p)
                     e = np.exp(-dt_eff / gate.tau_ms(vb, celsius, p))
-                xj = np.subtract(x[j], inf, out=new[j])
+                xj = x[j]
+                xj -= inf
                 xj *= e
                 xj += inf
                 for _ in range(int(gate.power)):
                     g *= xj
-            out.append(new)
             G[where] += g
             g *= block.reversal_mV
             J[where] += g
-        return out
+        return gates
 
     def _advance_synapses(self, states, h, step, first_half, second_half):
         """Synapse states at t+h, adding the events of ``step`` in the selected halves."""
