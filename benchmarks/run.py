@@ -57,9 +57,19 @@ def channel_set(kind: str):
         return hh
     if not HAVE_DENDRITIC:
         return hh
-    # A-type with the Hoffman et al (1997) gradient, Ih rising with distance (Magee 1998)
-    return hh + list(ka_placements(hoffman_gradient(0.005))) + [
-        ChannelPlacement(ih, Linear(5e-5, 2e-7))]
+    # A-type with the Hoffman et al (1997) gradient
+    ka = list(ka_placements(hoffman_gradient(0.005)))
+    if kind == "hh_ka":
+        return hh + ka
+    # ... and Ih rising with distance (Magee 1998)
+    return hh + ka + [ChannelPlacement(ih, Linear(5e-5, 2e-7))]
+
+
+#: Distinct exponentials per compartment and step of each case, counted by hand from
+#: the rate functions in cabletree.channels (one per rate exponential, identical ones
+#: counted once, plus one Rush-Larsen factor per gate): HH m 3, h 3, n 3; A-type
+#: n 4, l 2; Ih q 4.
+EXPONENTIALS_PER_COMPARTMENT = {"passive": 0, "hh": 9, "hh_ka": 15, "hh_ka_ih": 19}
 
 
 def generated_cell(n_target: int, kind: str):
@@ -68,7 +78,12 @@ def generated_cell(n_target: int, kind: str):
     morph = synthetic.random_tree(n_branches, seed=7, samples_per_branch=4)
     return build_cell(morph, spacing=SpacingRule(max_length_um=10.0, lambda_fraction=None),
                       membrane=Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-65.0),
-                      channels=channel_set(kind), celsius=6.3 if kind != "hh_ka_ih" else 24.0)
+                      channels=channel_set(kind), celsius=temperature(kind))
+
+
+def temperature(kind: str) -> float:
+    """°C of a case: the squid-axon temperature for HH alone, room temperature with A-type."""
+    return 6.3 if kind in ("passive", "hh") else 24.0
 
 
 def real_cell(kind: str):
@@ -76,7 +91,7 @@ def real_cell(kind: str):
     morph = read_swc(REAL_SWC)
     return build_cell(morph, spacing=SpacingRule(max_length_um=10.0, lambda_fraction=None),
                       membrane=Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-65.0),
-                      channels=channel_set(kind), celsius=6.3 if kind != "hh_ka_ih" else 24.0)
+                      channels=channel_set(kind), celsius=temperature(kind))
 
 
 def with_drive(cell):
@@ -225,6 +240,41 @@ def ivp_comparison(quick):
     return out
 
 
+# --- cost of one exponential -----------------------------------------------------
+
+def exponential_cost(repeats: int = 7):
+    """ns per element of the compiled kernel's exp and of ``np.exp``, 10^4 values.
+
+    The gate loops of both backends are bound by exponentials, so these two numbers
+    and EXPONENTIALS_PER_COMPARTMENT give the ceiling of each case.
+    """
+    x = np.random.default_rng(0).uniform(-20.0, 5.0, 10_000)
+    out = np.empty_like(x)
+
+    def best(f, number):
+        f()
+        ts = []
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            for _ in range(number):
+                f()
+            ts.append((time.perf_counter() - t0) / number)
+        return min(ts) / x.size * 1e9
+
+    res = {"numpy_np_exp_ns": best(lambda: np.exp(x, out=out), 50)}
+    if CompiledStepper is not None:
+        import numba
+        from cabletree.solver.compiled import FASTMATH_FLAGS, fast_exp
+
+        @numba.njit(fastmath=set(FASTMATH_FLAGS), error_model="numpy")
+        def exp_loop(a, b):
+            for i in range(a.size):
+                b[i] = fast_exp(a[i])
+
+        res["compiled_fast_exp_ns"] = best(lambda: exp_loop(x, out), 500)
+    return res
+
+
 # --- cold start ----------------------------------------------------------------------
 
 _COLD = r'''
@@ -280,9 +330,9 @@ def main(argv=None):
     if CompiledStepper is not None:
         backends = ["compiled", "compiled_2threads", "reference"]
     records = []
-    kinds = ["passive", "hh", "hh_ka_ih"]
+    kinds = ["passive", "hh", "hh_ka", "hh_ka_ih"]
     if not HAVE_DENDRITIC:
-        print("note: A-type/Ih channels not found; case hh_ka_ih runs HH only")
+        print("note: A-type/Ih channels not found; cases hh_ka and hh_ka_ih run HH only")
     cells = []
     for n in sizes:
         for kind in kinds:
@@ -295,7 +345,7 @@ def main(argv=None):
         n = cell.n_compartments
         row = {}
         for backend in backends:
-            if quick and backend == "compiled_2threads" and kind != "hh_ka_ih":
+            if quick and backend == "compiled_2threads" and kind not in ("hh_ka", "hh_ka_ih"):
                 continue
             steps = steps_for(n, backend, quick)
             sec, mem = time_run(cell, backend, steps, repeats)
@@ -324,20 +374,23 @@ def main(argv=None):
                 b = [r for r in records if r["case"] == f"{kind}_N100000" and r["backend"] == backend]
                 if a and b:
                     scaling[f"{kind}/{backend}"] = b[0]["s_per_step"] / a[0]["s_per_step"]
+    print("cost of one exponential ...", flush=True)
+    exp_cost = exponential_cost()
     print("cold start ...", flush=True)
     cold = cold_start() if CompiledStepper else {}
     meta = dict(cores=os.cpu_count(), machine=platform.processor() or platform.machine(),
                 python=platform.python_version(), quick=quick,
                 load_average=os.getloadavg() if hasattr(os, "getloadavg") else None)
-    print_table(records, ivp, scaling, cold, meta, fixed)
+    print_table(records, ivp, scaling, cold, meta, fixed, exp_cost)
     if args.json:
         payload = dict(records=records, solve_ivp=ivp, scaling_1e5_over_1e4=scaling,
-                       cold_start=cold, machine=meta)
+                       cold_start=cold, exponential_cost=exp_cost,
+                       exponentials_per_compartment=EXPONENTIALS_PER_COMPARTMENT, machine=meta)
         args.json.write_text(json.dumps(payload, indent=1, default=float))
     return 0
 
 
-def print_table(records, ivp, scaling, cold, meta, fixed):
+def print_table(records, ivp, scaling, cold, meta, fixed, exp_cost):
     print()
     print(f"machine: {meta['cores']} cores, load average {meta['load_average']}")
     print(f"{'case':<22} {'backend':<18} {'N':>7} {'cs/s':>10} {'vs compiled':>11} "
@@ -359,6 +412,16 @@ def print_table(records, ivp, scaling, cold, meta, fixed):
     if scaling:
         print("time per step N=1e5 / N=1e4: " +
               ", ".join(f"{k} {v:.3g}" for k, v in scaling.items()))
+    ceilings = []
+    for label, key in (("compiled", "compiled_fast_exp_ns"), ("reference", "numpy_np_exp_ns")):
+        if key in exp_cost:
+            ns = exp_cost[key]
+            caps = ", ".join(f"{k} {1e9 / (m * ns):.3g}" for k, m in
+                             EXPONENTIALS_PER_COMPARTMENT.items() if m)
+            ceilings.append(f"  {label}: {ns:.3g} ns per exp -> exps alone allow at most "
+                            f"(cs/s) {caps}")
+    print("exponentials (the floor of the gate loops):")
+    print("\n".join(ceilings))
     if cold:
         print(f"cold start (first compiled run in a new process): no cache "
               f"{cold['no_cache_s']:.3g} s, with cache {cold['with_cache_s']:.3g} s "
