@@ -130,8 +130,12 @@ def time_run(cell, backend, n_steps, repeats, dt=0.025):
     stepper.run(settings, make_schedule(cell, settings), state, idx)
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
-    # scratch arrays allocated inside the compiled kernel are invisible to tracemalloc
-    scratch = 5 * cell.n_compartments * 8 if backend.startswith("compiled") else 0
+    # scratch arrays allocated inside the compiled kernel are invisible to tracemalloc:
+    # G, J, the eliminated diagonal, the right-hand side and the multipliers (N each)
+    # and two gate-loop rows of N per thread
+    threads = 2 if backend == "compiled_2threads" else 1
+    n = cell.n_compartments
+    scratch = (5 * n + 2 * threads * n) * 8 if backend.startswith("compiled") else 0
     return float(np.median(times)) / n_steps, (peak + scratch) / 1e6
 
 

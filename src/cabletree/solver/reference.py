@@ -11,12 +11,16 @@ The tree system is solved exactly in O(N):
 - :class:`BranchSchurSolver` (used by :class:`ReferenceStepper`): the same
   system split into the branch points (and the root) and the unbranched chains
   between them.  All chains form one block-diagonal symmetric positive-definite
-  tridiagonal system, solved by a single LAPACK ``dptsv`` call with three
-  right-hand sides; the Schur complement on the branch points is again a tree
-  matrix, solved by :class:`TreeMatrix` over the far fewer levels of the tree of
-  branch points (Golub & Van Loan, Matrix Computations, 4th ed. 2013, §4.3 and
-  §3.2.11 on block elimination).  Same answer as :class:`TreeMatrix` to
-  round-off.
+  tridiagonal system, factored by one LAPACK ``dpttrf`` call and solved by
+  ``dpttrs``; the Schur complement on the branch points is again a tree matrix,
+  solved by :class:`TreeMatrix` over the far fewer levels of the tree of branch
+  points (Golub & Van Loan, Matrix Computations, 4th ed. 2013, §4.3 and §3.2.11
+  on block elimination).  Same answer as :class:`TreeMatrix` to round-off.  The
+  factorisation is kept while the diagonal is unchanged (a passive cell at a
+  fixed step), so such a step costs the right-hand side solve only.
+
+The work arrays of a step (conductances, diagonal, right-hand side) are kept on
+the stepper and gate states are updated in place.
 """
 
 from __future__ import annotations
@@ -246,7 +250,6 @@ class BranchSchurSolver:
         self._direct_local = local[direct]
         self._factored_d = None
 
-
     def _factor_chains(self, d_interior: np.ndarray):
         """``L D L^T`` factors of the chains' tridiagonal block (LAPACK ``dpttrf``)."""
         m = d_interior.size
@@ -363,7 +366,7 @@ class ReferenceStepper:
 
     # -- pieces of one step ---------------------------------------------------
     def _advance_gates(self, v, gates, dt_gate, G, J):
-        """Gates after ``dt_gate`` (Rush-Larsen), updated in place; adds the channel conductances to G, J.
+        """Gates after ``dt_gate`` (Rush-Larsen), updated in place; adds the conductances to G, J.
 
         Rate gates use ``exp(-dt phi (alpha + beta))`` and the open fraction is a
         product of repeated multiplications, the arithmetic of the compiled kernel.
