@@ -197,6 +197,15 @@ def test_error_unknown_top_level_table():
                                         r"'channels'\?")
 
 
+def test_rate_tables_are_opt_in_from_the_run_table():
+    s = scenario_from_dict(base_dict())
+    assert build_cell_model(s)[1].rate_table_step_mV is None
+    t = with_overrides(s, {"run.rate_table_step_mV": 0.05})
+    assert build_cell_model(t)[1].rate_table_step_mV == 0.05
+    bad(lambda d: d["run"].update(rate_table_step_mV=0.0),
+        r"^test\.toml: run\.rate_table_step_mV: expected a number > 0 in mV, got 0\.0$")
+
+
 def test_error_missing_key():
     bad(lambda d: d["run"].pop("t_stop_ms"), r"^test\.toml: run\.t_stop_ms: missing required key$")
     bad(lambda d: d["channels"]["ka"].pop("gmax"),

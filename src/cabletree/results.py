@@ -11,8 +11,9 @@ Layout (DESIGN §6)
   ``axial_resistivity_ohm_cm``, ``spine_factor``) and ``gmax_<channel>`` (S/cm²,
   0 where the channel is absent) plus ``<channel>__<parameter>`` for channel
   parameters.
-- attrs: ``method``, ``dt_ms``, ``t_stop_ms``, ``celsius``, ``backend``,
-  ``cabletree_version``, ``scenario`` (the scenario text, may be empty).
+- attrs: ``method``, ``dt_ms``, ``t_stop_ms``, ``celsius``, ``backend``, ``rates``
+  (``"exact"``, or how rates were tabulated), ``cabletree_version``, ``scenario``
+  (the scenario text, may be empty).
 
 Every variable and coordinate carries ``units`` and ``long_name``.  Files are
 NetCDF3 written with xarray's scipy engine (no HDF5 stack needed); integers are
@@ -142,6 +143,10 @@ def make_dataset(cell: CellModel, output, scenario_text: str = "") -> xr.Dataset
     ds.attrs.update({
         "method": s.method, "dt_ms": float(s.dt_ms), "t_stop_ms": float(s.t_stop_ms),
         "record_interval_ms": float(s.dt_ms * s.record_every), "celsius": float(cell.celsius),
+        "rates": ("exact" if s.rate_table_step_mV is None else
+                  f"tabulated every {s.rate_table_step_mV:g} mV over "
+                  f"[{s.rate_table_range_mV[0]:g}, {s.rate_table_range_mV[1]:g}] mV, linear "
+                  "interpolation (blocks with parameters varying over the tree exact)"),
         "backend": output.backend, "cabletree_version": package_version(),
         "morphology_source": g.source, "scenario": scenario_text,
         "Conventions": "CF-1.8",

@@ -63,7 +63,8 @@ Sections
     ``record_interval_ms``, ``v_init_mV`` (-65), ``celsius`` (34), ``seed`` (0; the
     default of every seed not given), ``backend`` (``auto``), ``settle_ms`` (0: run
     this long without inputs first and start from the state reached, so the
-    recording begins at rest).
+    recording begins at rest), ``rate_table_step_mV`` (absent: exact rates; opt-in
+    tabulated rates at this voltage spacing, see :mod:`cabletree.solver.tables`).
 ``[analysis]`` (optional)
     What :mod:`cabletree.report` computes and draws; see there.
 ``[sweep]`` (optional)
@@ -819,7 +820,7 @@ def _run_settings(ctx, data: dict):
     r = _table(ctx, data["run"], p)
     _keys(ctx, r, p, required=("t_stop_ms",),
           optional=("dt_ms", "method", "record_interval_ms", "v_init_mV", "celsius", "seed",
-                    "backend", "settle_ms"))
+                    "backend", "settle_ms", "rate_table_step_mV"))
     t_stop = _num(ctx, r, "t_stop_ms", p, lo=0, lo_open=True)
     dt = _num(ctx, r, "dt_ms", p, 0.025, lo=0, lo_open=True)
     if dt > t_stop:
@@ -833,7 +834,10 @@ def _run_settings(ctx, data: dict):
     settings = RunSettings(t_stop_ms=t_stop, dt_ms=dt,
                            method=_str(ctx, r, "method", p, choices=METHODS,
                                        default="crank_nicolson"),
-                           record_interval_ms=rec, v_init_mV=_num(ctx, r, "v_init_mV", p, -65.0))
+                           record_interval_ms=rec, v_init_mV=_num(ctx, r, "v_init_mV", p, -65.0),
+                           rate_table_step_mV=(_num(ctx, r, "rate_table_step_mV", p, lo=0,
+                                                    lo_open=True, hi=10.0)
+                                               if "rate_table_step_mV" in r else None))
     celsius = _num(ctx, r, "celsius", p, 34.0, lo=-5.0, hi=50.0, unit="°C")
     seed = _num(ctx, r, "seed", p, 0, lo=0, integer=True, unit="")
     backend = _str(ctx, r, "backend", p, choices=BACKENDS, default="auto")
@@ -1057,7 +1061,9 @@ def _settled_state(cell, settings, settle_ms: float, backend: str):
                           np.zeros(0, np.int64)) for g in cell.synapses]
     rest = cell.with_inputs(injections=(), synapses=quiet)
     pre = RunSettings(t_stop_ms=settle_ms, dt_ms=settings.dt_ms, method=settings.method,
-                      v_init_mV=settings.v_init_mV)
+                      v_init_mV=settings.v_init_mV,
+                      rate_table_step_mV=settings.rate_table_step_mV,
+                      rate_table_range_mV=settings.rate_table_range_mV)
     state = simulate(rest, pre, backend=backend).final_state
     return dataclasses.replace(state, time_ms=0.0)
 

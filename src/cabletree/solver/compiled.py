@@ -39,6 +39,11 @@ vectorisation) and ``fastmath={'nsz', 'arcp', 'contract'}`` only: the flags
 that assume no NaN or infinity are left out so NaN detection stays exact, and
 re-association is left out so :func:`fast_exp`'s rounding trick survives.
 
+Rate tables: with ``RunSettings(rate_table_step_mV=...)`` a block with uniform
+parameters reads its gates' steady states and rates from a table
+(:mod:`cabletree.solver.tables`) instead of calling its rate functions; the
+kernel for that combination is generated and cached like any other.
+
 Threads: ``CompiledStepper(cell, threads=2)`` splits the compartments into two
 ranges of about equal gate work and updates every channel block of one range on
 one thread, in a single ``numba.prange`` region per step (no two threads write
@@ -67,6 +72,7 @@ from ..fileio import write_atomically
 from ..errors import NumericalInstabilityError, SolverError
 from ..inputs import double_exponential_peak
 from .plan import RunSettings, SolverState, StepSchedule
+from .tables import tables_for_settings
 
 __all__ = ["CompiledStepper", "fast_exp", "kernel_cache_dir", "FASTMATH_FLAGS"]
 
@@ -269,7 +275,7 @@ def _rate_functions(channel):
 
 # --- generated source ------------------------------------------------------------
 
-def _block_source(b: int, channel, contiguous: bool) -> str:
+def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) -> str:
     """Source of the gate-update + conductance function of channel block ``b``.
 
     The function updates the block's entries ``k0 <= k < k1`` (all of them on one
@@ -292,11 +298,16 @@ def _block_source(b: int, channel, contiguous: bool) -> str:
     over all gates).
     Divisions are avoided where a product does: the gate factor is
     ``exp(-dt (alpha + beta) phi)`` rather than ``exp(-dt / tau)``.
+
+    A ``tabulated`` block reads each gate's steady state and rate from its rate
+    table ``tb`` (lookup constants ``tv``, see :mod:`cabletree.solver.tables`)
+    by linear interpolation, the arithmetic of
+    :func:`cabletree.solver.tables.interpolate`, in place of the rate loop.
     """
     npar = len(channel.parameter_names)
     lines = ["@numba.njit(**_JIT)",
              f"def block_{b}(v, index, k0, k1, x, par, gmax, erev, celsius, phi, "
-             "dt_gate, G, J, w0, w1):",
+             "dt_gate, G, J, w0, w1, tb, tv):",
              "    if k0 < 0:  # never; tells the compiler k >= 0 (no negative-index wraparound)",
              "        return",
              "    dts = dt_gate * phi"]
@@ -308,19 +319,37 @@ def _block_source(b: int, channel, contiguous: bool) -> str:
                   "        vg[k] = v[index[k0 + k]]"]
     vi = "v[k]" if contiguous else "vg[kk]"
     ptuple = f"PT_{b}(" + "".join(f"par[{q}, k], " for q in range(npar)) + ")"
+    if tabulated:
+        lines += ["    v0 = tv[0]",
+                  "    inv_h = tv[1]",
+                  "    top = tv[2]",
+                  "    last = int(tv[3])"]
     for j, gate in enumerate(channel.gates):
         step = "dts" if gate.temperature_scaled else "dt_gate"
         lines += ["    for kk in range(k1 - k0):",
-                  "        k = k0 + kk",
-                  f"        vi = {vi}",
-                  f"        p = {ptuple}"]
-        if gate.uses_rates:
-            lines += [f"        a = R_{b}_{j}_0(vi, celsius, p)",
+                  "        k = k0 + kk"]
+        if tabulated:
+            lines += [f"        u = ({vi} - v0) * inv_h",
+                      "        u = u if u >= 0.0 else 0.0  # NaN too",
+                      "        u = top if u > top else u",
+                      "        i = int(u)",
+                      "        i = last if i > last else i",
+                      "        f = u - i",
+                      f"        a0 = tb[{j}, i, 0]",
+                      f"        r0 = tb[{j}, i, 1]",
+                      f"        w0[k] = a0 + f * (tb[{j}, i + 1, 0] - a0)",
+                      f"        w1[k] = (r0 + f * (tb[{j}, i + 1, 1] - r0)) * -{step}"]
+        elif gate.uses_rates:
+            lines += [f"        vi = {vi}",
+                      f"        p = {ptuple}",
+                      f"        a = R_{b}_{j}_0(vi, celsius, p)",
                       f"        s = a + R_{b}_{j}_1(vi, celsius, p)",
                       "        w0[k] = a * (1.0 / s)",
                       f"        w1[k] = -{step} * s"]
         else:
-            lines += [f"        w0[k] = R_{b}_{j}_0(vi, celsius, p)",
+            lines += [f"        vi = {vi}",
+                      f"        p = {ptuple}",
+                      f"        w0[k] = R_{b}_{j}_0(vi, celsius, p)",
                       f"        w1[k] = -{step} / R_{b}_{j}_1(vi, celsius, p)"]
         lines += ["    for kk in range(k1 - k0):",
                   "        k = k0 + kk",
@@ -533,9 +562,9 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
 '''
 
 
-def _module_source(channels: tuple, contiguous: tuple) -> str:
+def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple) -> str:
     """Source of the kernel module for a sequence of channel blocks."""
-    params = "".join(f", x{b}, idx{b}, sp{b}, par{b}, gm{b}, er{b}, phi{b}"
+    params = "".join(f", x{b}, idx{b}, sp{b}, par{b}, gm{b}, er{b}, phi{b}, tb{b}, tv{b}"
                      for b in range(len(channels)))
     calls = []
     for b, c in enumerate(contiguous):
@@ -544,31 +573,36 @@ def _module_source(channels: tuple, contiguous: tuple) -> str:
             view = f"idx{b}[0]:idx{b}[0] + gm{b}.size"
             calls.append(f"        if gm{b}.size > 0:\n"
                          f"            block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, gm{b}, "
-                         f"er{b}, celsius, phi{b}, dt_gate, G[{view}], J[{view}], w0[t], w1[t])\n")
+                         f"er{b}, celsius, phi{b}, dt_gate, G[{view}], J[{view}], w0[t], w1[t], "
+                         f"tb{b}, tv{b})\n")
         else:
             calls.append(f"        block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
-                         f"celsius, phi{b}, dt_gate, G, J, w0[t], w1[t])\n")
+                         f"celsius, phi{b}, dt_gate, G, J, w0[t], w1[t], tb{b}, tv{b})\n")
     calls = "".join(calls)
     head = ("# generated by cabletree.solver.compiled; do not edit\n"
             "import numba\n\n")
-    blocks = "\n".join(_block_source(b, ch, c)
-                        for b, (ch, c) in enumerate(zip(channels, contiguous)))
+    blocks = "\n".join(_block_source(b, ch, c, tab)
+                        for b, (ch, c, tab) in enumerate(zip(channels, contiguous, tabulated)))
     return (head + blocks + _KERNEL_TEMPLATE.format(block_params=params, block_args=params,
                                                     block_calls=calls or "        pass\n"))
 
 
 _KERNELS: dict = {}
+# stand-ins passed for the rate table of a block with exact rates (never read)
+_NO_TABLE = np.zeros((0, 1, 2))
+_NO_TABLE_CONSTANTS = np.zeros(4)
 
 
-def _load_kernel(channels: tuple, contiguous: tuple, threads: int):
+def _load_kernel(channels: tuple, contiguous: tuple, threads: int, tabulated: tuple):
     """The compiled ``run`` function for a channel set (built once per process).
 
-    ``contiguous[b]`` says whether block ``b`` covers a contiguous index range.
+    ``contiguous[b]`` says whether block ``b`` covers a contiguous index range and
+    ``tabulated[b]`` whether it reads a rate table instead of its rate functions.
     """
-    key = (channels, contiguous, threads)
+    key = (channels, contiguous, threads, tabulated)
     if key in _KERNELS:
         return _KERNELS[key]
-    source = _module_source(channels, contiguous)
+    source = _module_source(channels, contiguous, tabulated)
     digest = hashlib.sha256()
     digest.update(f"{_CODE_VERSION}|{numba.__version__}|{np.__version__}|{threads}|".encode())
     digest.update(inspect.getsource(sys.modules[__name__]).encode())
@@ -723,19 +757,25 @@ class CompiledStepper:
         # without channels or synapses the matrix changes only with the step size,
         # so the kernel factors it once and then eliminates right-hand sides only
         self.fixed_matrix = not cell.channels and not cell.synapses
-        self._kernel = None
+        self._kernels = {}
+        self._table_cache = {}
         self.n_steps_done = 0
 
-    def kernel(self):
-        """The compiled time loop for this cell's channel set (loaded or built on first use)."""
-        if self._kernel is None:
+    def kernel(self, tabulated: tuple | None = None):
+        """The compiled time loop for this cell's channel set (loaded or built on first use).
+
+        ``tabulated[b]`` selects rate-table lookups for block ``b`` (default: none).
+        """
+        tabulated = (False,) * len(self.channels) if tabulated is None else tuple(tabulated)
+        if tabulated not in self._kernels:
             try:
-                self._kernel = _load_kernel(self.channels, self.contiguous, self.threads)
+                self._kernels[tabulated] = _load_kernel(self.channels, self.contiguous,
+                                                        self.threads, tabulated)
             except SolverError:
                 raise
             except Exception as exc:
                 raise _diagnose(self.channels, self.cell.celsius, exc) from exc
-        return self._kernel
+        return self._kernels[tabulated]
 
     def run(self, settings: RunSettings, sched: StepSchedule, state: SolverState,
             record_index: np.ndarray):
@@ -745,7 +785,8 @@ class CompiledStepper:
         -------
         (v_records, final_state) : (ndarray of shape (n_records, n_sites), SolverState)
         """
-        kernel = self.kernel()
+        tables = tables_for_settings(self.cell, settings, self._table_cache)
+        kernel = self.kernel(tuple(t is not None for t in tables))
         v = np.array(state.v_mV, dtype=float)
         gates = [np.array(x, dtype=float).reshape(len(b.channel.gates), b.index.size)
                  for b, x in zip(self.cell.channels, state.gates)]
@@ -766,8 +807,13 @@ class CompiledStepper:
         inj_mid = np.ascontiguousarray(sched.injection_mid_nA, dtype=float).reshape(sched.n_steps, m)
         inj_end = np.ascontiguousarray(sched.injection_end_nA, dtype=float).reshape(sched.n_steps, m)
         block_args = []
-        for x, (idx, split, _, par, gm, er, phi) in zip(gates, self.block_static):
-            block_args += [x, idx, split, par, gm, er, phi]
+        for x, (idx, split, _, par, gm, er, phi), table in zip(gates, self.block_static, tables):
+            if table is None:
+                tb, tv = _NO_TABLE, _NO_TABLE_CONSTANTS
+            else:
+                tb = np.ascontiguousarray(table.values)
+                tv = table.lookup_constants()
+            block_args += [x, idx, split, par, gm, er, phi, tb, tv]
         args = (sched.n_steps, float(dt), settings.method == "crank_nicolson",
                 np.ascontiguousarray(sched.smoothing, dtype=np.bool_),
                 float(settings.max_abs_v_mV), int(sched.record_every), float(state.gate_lag_ms),

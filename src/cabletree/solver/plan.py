@@ -47,6 +47,13 @@ class RunSettings:
         Rannacher smoothing for Crank-Nicolson (on by default).
     max_abs_v_mV : float
         A potential beyond ± this value counts as runaway, mV.
+    rate_table_step_mV : float, optional
+        Opt-in: tabulate every gate's steady state and rate at this voltage
+        spacing, mV, and interpolate them linearly during the run (see
+        :mod:`cabletree.solver.tables`; faster, not exact).  ``None`` (default)
+        evaluates the rate functions exactly.
+    rate_table_range_mV : (float, float)
+        Tabulated voltage range, mV; potentials outside it use the nearer end.
     """
 
     t_stop_ms: float
@@ -56,6 +63,8 @@ class RunSettings:
     v_init_mV: float = -65.0
     smoothing: bool = True
     max_abs_v_mV: float = 1000.0
+    rate_table_step_mV: float | None = None
+    rate_table_range_mV: tuple[float, float] = (-150.0, 100.0)
 
     def __post_init__(self) -> None:
         if self.method not in METHODS:
@@ -70,6 +79,14 @@ class RunSettings:
                 raise SolverError(
                     f"record_interval_ms ({self.record_interval_ms}) must be a whole multiple of "
                     f"dt_ms ({self.dt_ms})")
+        lo, hi = (float(x) for x in self.rate_table_range_mV)
+        if not (math.isfinite(lo) and math.isfinite(hi) and lo < hi):
+            raise SolverError(f"rate_table_range_mV must be (low, high) with low < high, got "
+                              f"{self.rate_table_range_mV!r}")
+        h = self.rate_table_step_mV
+        if h is not None and not (math.isfinite(h) and 0 < h <= (hi - lo) / 2):
+            raise SolverError(f"rate_table_step_mV must be > 0 and at most half the tabulated "
+                              f"range ({hi - lo:g} mV), got {h!r}")
 
     @property
     def n_steps(self) -> int:

@@ -33,6 +33,7 @@ from ..cell import CellModel
 from ..errors import NumericalInstabilityError
 from ..inputs import double_exponential_peak, mg_block
 from .plan import RunSettings, SolverState, StepSchedule
+from .tables import interpolate, tables_for_settings
 
 __all__ = ["TreeMatrix", "BranchSchurSolver", "ReferenceStepper"]
 
@@ -362,6 +363,8 @@ class ReferenceStepper:
         # work arrays reused every step (the tree solver copies what it keeps)
         self._G, self._J, self._d, self._r, self._abs_v = (np.empty(n) for _ in range(5))
         self._c_over_h = {}
+        self._table_cache = {}
+        self._tables = (None,) * len(self.blocks)
         self._g = [np.empty(block.index.size) for block in cell.channels]
 
     # -- pieces of one step ---------------------------------------------------
@@ -370,14 +373,21 @@ class ReferenceStepper:
 
         Rate gates use ``exp(-dt phi (alpha + beta))`` and the open fraction is a
         product of repeated multiplications, the arithmetic of the compiled kernel.
+        A block with a rate table (:mod:`cabletree.solver.tables`) takes its
+        steady states and rates from it instead of its rate functions.
         """
         celsius = self.cell.celsius
-        for (block, where, p, phi), x, g in zip(self.blocks, gates, self._g):
+        for (block, where, p, phi), x, g, table in zip(self.blocks, gates, self._g, self._tables):
             vb = v[where]
             np.copyto(g, block.gmax_uS)
+            if table is not None:
+                inf_all, rate_all = interpolate(table, vb)
             for j, gate in enumerate(block.channel.gates):
                 dt_eff = dt_gate * (phi if gate.temperature_scaled else 1.0)
-                if gate.uses_rates:
+                if table is not None:
+                    inf = inf_all[j]
+                    e = np.exp(np.multiply(rate_all[j], -dt_eff, out=rate_all[j]))
+                elif gate.uses_rates:
                     a = gate.alpha(vb, celsius, p)
                     s = a + gate.beta(vb, celsius, p)
                     inf = a / s
@@ -492,6 +502,7 @@ class ReferenceStepper:
         (v_records, final_state) : (ndarray of shape (n_records, n_sites), SolverState)
         """
         self._dt = sched.dt_ms
+        self._tables = tables_for_settings(self.cell, settings, self._table_cache)
         # injections summed per compartment in their order (as np.add.at would)
         self._injected, self._injection_slot = np.unique(sched.injection_compartment,
                                                          return_inverse=True)
