@@ -307,7 +307,7 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
     npar = len(channel.parameter_names)
     lines = ["@numba.njit(**_JIT)",
              f"def block_{b}(v, index, k0, k1, x, par, gmax, erev, celsius, phi, "
-             "dt_gate, G, J, w0, w1, tb, tv):",
+             "dt_gate, G, J, w0, w1, wf, wi, tb, tv):",
              "    if k0 < 0:  # never; tells the compiler k >= 0 (no negative-index wraparound)",
              "        return",
              "    dts = dt_gate * phi"]
@@ -320,21 +320,27 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
     vi = "v[k]" if contiguous else "vg[kk]"
     ptuple = f"PT_{b}(" + "".join(f"par[{q}, k], " for q in range(npar)) + ")"
     if tabulated:
+        # grid cell and fraction once per block (vectorised: int32 conversion)
         lines += ["    v0 = tv[0]",
                   "    inv_h = tv[1]",
                   "    top = tv[2]",
-                  "    last = int(tv[3])"]
+                  "    last = tv[3]",
+                  "    for kk in range(k1 - k0):",
+                  "        k = k0 + kk",
+                  f"        u = ({vi} - v0) * inv_h",
+                  "        u = u if u >= 0.0 else 0.0  # NaN too",
+                  "        u = top if u > top else u",
+                  "        c = np.floor(u)",
+                  "        c = last if c > last else c",
+                  "        wf[k] = u - c",
+                  "        wi[k] = np.int32(c)"]
     for j, gate in enumerate(channel.gates):
         step = "dts" if gate.temperature_scaled else "dt_gate"
         lines += ["    for kk in range(k1 - k0):",
                   "        k = k0 + kk"]
         if tabulated:
-            lines += [f"        u = ({vi} - v0) * inv_h",
-                      "        u = u if u >= 0.0 else 0.0  # NaN too",
-                      "        u = top if u > top else u",
-                      "        i = int(u)",
-                      "        i = last if i > last else i",
-                      "        f = u - i",
+            lines += ["        i = wi[k]",
+                      "        f = wf[k]",
                       f"        a0 = tb[{j}, i, 0]",
                       f"        r0 = tb[{j}, i, 1]",
                       f"        w0[k] = a0 + f * (tb[{j}, i + 1, 0] - a0)",
@@ -376,7 +382,7 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
 
 _KERNEL_TEMPLATE = '''
 @numba.njit(**_JIT_PAR)
-def gates_and_currents(v, dt_gate, G, J, w0, w1, celsius{block_params}):
+def gates_and_currents(v, dt_gate, G, J, w0, w1, wf, wi, celsius{block_params}):
     # one parallel region per call: chunk t covers one range of compartments in
     # every block (sp<b>[t]:sp<b>[t + 1] are the block entries in that range)
     for t in numba.prange(N_CHUNKS):
@@ -390,10 +396,10 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
             fixed_matrix, mult, factor_rheff,
             inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
             sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
-            w0, w1, celsius{block_params}):
+            w0, w1, wf, wi, celsius{block_params}):
     n = v.size
     # G and J hold the leak on entry (set by the caller, then reset below)
-    gates_and_currents(v, dt_gate, G, J, w0, w1, celsius{block_args})
+    gates_and_currents(v, dt_gate, G, J, w0, w1, wf, wi, celsius{block_args})
     ns = sa.size
     if ns > 0:
         for s in range(ns):
@@ -505,6 +511,8 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
     # thread runs its blocks in turn, but two threads may be in different blocks)
     w0 = np.empty((N_CHUNKS, n))
     w1 = np.empty((N_CHUNKS, n))
+    wf = np.empty((N_CHUNKS, n))  # rate tables: grid cell and fraction
+    wi = np.empty((N_CHUNKS, n), dtype=np.int32)
     factor_rheff = np.full(1, np.nan)  # h-factor of the stored factorisation (none yet)
     sa_old = np.empty(sa.size)
     sb_old = np.empty(sa.size)
@@ -547,7 +555,7 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
                     limit, fixed_matrix, mult, factor_rheff,
                     inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                     sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
-                    w0, w1, celsius{block_args})
+                    w0, w1, wf, wi, celsius{block_args})
             lag = new_lag
         if n_bad > 0:
             bad = 0
@@ -574,10 +582,11 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple) -> str:
             calls.append(f"        if gm{b}.size > 0:\n"
                          f"            block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, gm{b}, "
                          f"er{b}, celsius, phi{b}, dt_gate, G[{view}], J[{view}], w0[t], w1[t], "
-                         f"tb{b}, tv{b})\n")
+                         f"wf[t], wi[t], tb{b}, tv{b})\n")
         else:
             calls.append(f"        block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
-                         f"celsius, phi{b}, dt_gate, G, J, w0[t], w1[t], tb{b}, tv{b})\n")
+                         f"celsius, phi{b}, dt_gate, G, J, w0[t], w1[t], wf[t], wi[t], tb{b}, "
+                         f"tv{b})\n")
     calls = "".join(calls)
     head = ("# generated by cabletree.solver.compiled; do not edit\n"
             "import numba\n\n")
