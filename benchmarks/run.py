@@ -103,8 +103,12 @@ def with_drive(cell):
 
 # --- timing -----------------------------------------------------------------------
 
+#: Voltage spacing of the rate tables in the "+tables" rows, mV.
+TABLE_STEP_MV = 0.05
+
+
 def make_stepper(cell, backend):
-    if backend == "reference":
+    if backend.startswith("reference"):
         return ReferenceStepper(cell)
     threads = 2 if backend == "compiled_2threads" else 1
     stepper = CompiledStepper(cell, threads=threads)
@@ -115,11 +119,12 @@ def make_stepper(cell, backend):
 def time_run(cell, backend, n_steps, repeats, dt=0.025):
     """Median seconds per step and tracemalloc peak (MB) of ``n_steps`` steps."""
     stepper = make_stepper(cell, backend)
-    warm = RunSettings(2 * dt, dt)
+    table = TABLE_STEP_MV if backend.endswith("+tables") else None
+    warm = RunSettings(2 * dt, dt, rate_table_step_mV=table)
     state = resting_state(cell, -65.0)
     idx = np.array([0], dtype=np.int64)
     stepper.run(warm, make_schedule(cell, warm), state, idx)  # load/compile outside timing
-    settings = RunSettings(n_steps * dt, dt)
+    settings = RunSettings(n_steps * dt, dt, rate_table_step_mV=table)
     times = []
     for _ in range(repeats):
         sched = make_schedule(cell, settings)
@@ -135,12 +140,14 @@ def time_run(cell, backend, n_steps, repeats, dt=0.025):
     # and two gate-loop rows of N per thread
     threads = 2 if backend == "compiled_2threads" else 1
     n = cell.n_compartments
-    scratch = (5 * n + 2 * threads * n) * 8 if backend.startswith("compiled") else 0
+    # (and per thread two float rows and one int32 row for the rate tables)
+    scratch = (5 * n + 3.5 * threads * n) * 8 if backend.startswith("compiled") else 0
     return float(np.median(times)) / n_steps, (peak + scratch) / 1e6
 
 
 def steps_for(n, backend, quick):
-    budget = {"reference": 4e6, "compiled": 6e7, "compiled_2threads": 6e7}[backend]
+    budget = {"reference": 4e6, "compiled": 6e7, "compiled_2threads": 6e7,
+              "compiled+tables": 6e7, "reference+tables": 4e6}[backend]
     budget *= 0.3 if quick else 1.0
     return int(max(4, min(2000, budget / n)))
 
@@ -244,6 +251,28 @@ def ivp_comparison(quick):
     return out
 
 
+# --- rate tables against exact rates --------------------------------------------
+
+def table_accuracy(quick, backend):
+    """Tabulated against exact rates on the 1000-compartment HH + A-type tree.
+
+    Largest difference of the recorded (soma) potential and of the spike times
+    over a run with a somatic step current, for several table spacings.
+    """
+    cell = with_drive(generated_cell(1000, "hh_ka"))
+    t_stop = 30.0 if quick else 60.0
+    exact = simulate(cell, RunSettings(t_stop, 0.025), backend=backend)
+    truth = spikes(exact.v_mV[:, 0], exact.time_ms)
+    out = {"n_compartments": cell.n_compartments, "t_stop_ms": t_stop,
+           "n_spikes": int(len(truth)), "by_step_mV": {}}
+    for h in (0.2, 0.1, 0.05, 0.025):
+        tab = simulate(cell, RunSettings(t_stop, 0.025, rate_table_step_mV=h), backend=backend)
+        out["by_step_mV"][h] = dict(
+            max_abs_dv_mV=float(np.max(np.abs(tab.v_mV - exact.v_mV))),
+            spike_time_error_ms=spike_error(spikes(tab.v_mV[:, 0], tab.time_ms), truth))
+    return out
+
+
 # --- cost of one exponential -----------------------------------------------------
 
 def exponential_cost(repeats: int = 7):
@@ -330,9 +359,10 @@ def main(argv=None):
     quick = args.quick
     sizes = [1000, 10000] if quick else [1000, 10000, 100000]
     repeats = 3
-    backends = ["reference"]
+    backends = ["reference", "reference+tables"]
     if CompiledStepper is not None:
-        backends = ["compiled", "compiled_2threads", "reference"]
+        backends = ["compiled", "compiled_2threads", "compiled+tables", "reference",
+                    "reference+tables"]
     records = []
     kinds = ["passive", "hh", "hh_ka", "hh_ka_ih"]
     if not HAVE_DENDRITIC:
@@ -351,6 +381,9 @@ def main(argv=None):
         for backend in backends:
             if quick and backend == "compiled_2threads" and kind not in ("hh_ka", "hh_ka_ih"):
                 continue
+            if backend.endswith("+tables") and (kind == "passive" or
+                                                (quick and kind != "hh_ka")):
+                continue
             steps = steps_for(n, backend, quick)
             sec, mem = time_run(cell, backend, steps, repeats)
             row[backend] = dict(case=case, backend=backend, n_compartments=n,
@@ -367,9 +400,10 @@ def main(argv=None):
     ivp = ivp_comparison(quick)
     fixed = "compiled" if CompiledStepper else "reference"
     for rec in records:
-        rec["ratios"]["vs_solve_ivp_bdf_1000_hh"] = (ivp["ivp_s"] /
-                                                     ivp[f"{rec['backend'].replace('_2threads', '')}_backward_euler_s"]
-                                                     if rec["case"].startswith("hh_N1000") else None)
+        exact_single = rec["backend"] in ("compiled", "reference")
+        rec["ratios"]["vs_solve_ivp_bdf_1000_hh"] = (
+            ivp["ivp_s"] / ivp[f"{rec['backend']}_backward_euler_s"]
+            if rec["case"].startswith("hh_N1000") and exact_single else None)
     scaling = {}
     if not quick:
         for kind in kinds:
@@ -378,6 +412,8 @@ def main(argv=None):
                 b = [r for r in records if r["case"] == f"{kind}_N100000" and r["backend"] == backend]
                 if a and b:
                     scaling[f"{kind}/{backend}"] = b[0]["s_per_step"] / a[0]["s_per_step"]
+    print("rate tables against exact rates ...", flush=True)
+    tables = table_accuracy(quick, fixed)
     print("cost of one exponential ...", flush=True)
     exp_cost = exponential_cost()
     print("cold start ...", flush=True)
@@ -385,16 +421,16 @@ def main(argv=None):
     meta = dict(cores=os.cpu_count(), machine=platform.processor() or platform.machine(),
                 python=platform.python_version(), quick=quick,
                 load_average=os.getloadavg() if hasattr(os, "getloadavg") else None)
-    print_table(records, ivp, scaling, cold, meta, fixed, exp_cost)
+    print_table(records, ivp, scaling, cold, meta, fixed, exp_cost, tables)
     if args.json:
         payload = dict(records=records, solve_ivp=ivp, scaling_1e5_over_1e4=scaling,
-                       cold_start=cold, exponential_cost=exp_cost,
+                       cold_start=cold, exponential_cost=exp_cost, rate_tables=tables,
                        exponentials_per_compartment=EXPONENTIALS_PER_COMPARTMENT, machine=meta)
         args.json.write_text(json.dumps(payload, indent=1, default=float))
     return 0
 
 
-def print_table(records, ivp, scaling, cold, meta, fixed, exp_cost):
+def print_table(records, ivp, scaling, cold, meta, fixed, exp_cost, tables):
     print()
     print(f"machine: {meta['cores']} cores, load average {meta['load_average']}")
     print(f"{'case':<22} {'backend':<18} {'N':>7} {'cs/s':>10} {'vs compiled':>11} "
@@ -424,6 +460,11 @@ def print_table(records, ivp, scaling, cold, meta, fixed, exp_cost):
                              EXPONENTIALS_PER_COMPARTMENT.items() if m)
             ceilings.append(f"  {label}: {ns:.3g} ns per exp -> exps alone allow at most "
                             f"(cs/s) {caps}")
+    print(f"rate tables vs exact rates ({fixed}), {tables['n_compartments']} compartments "
+          f"HH + A-type, {tables['t_stop_ms']} ms, {tables['n_spikes']} spikes at the soma:")
+    for h, r in tables["by_step_mV"].items():
+        print(f"  every {h:g} mV: max |dV| {r['max_abs_dv_mV']:.3g} mV, spike-time error "
+              f"{r['spike_time_error_ms']:.3g} ms")
     print("exponentials (the floor of the gate loops):")
     print("\n".join(ceilings))
     if cold:
