@@ -120,3 +120,17 @@ def test_check_swc_with_repairs_and_hint(capsys):
     assert main(["check", str(purkinje), "--soma-radius-um", "10"]) == 0
     out = capsys.readouterr().out
     assert "soma radius set to 10" in out
+
+
+def test_time_left_is_timed_from_when_stepping_began(monkeypatch, capsys):
+    # a kernel compile before the first step must not inflate the estimate:
+    # 12 s of preparation, then half the run in 3 s leaves about 3 s
+    import cabletree.cli as cli
+    clock = iter([0.0, 12.0, 15.0])
+    monkeypatch.setattr(cli.time, "perf_counter", lambda: next(clock))
+    report = cli._run_progress(min_interval_s=0.0)
+    report(0.0, 0.0)
+    report(0.5, 10.0)
+    err = capsys.readouterr().err
+    assert "ready after 12.0 s" in err
+    assert "about 3.0 s left" in err and "15.0 s elapsed" in err

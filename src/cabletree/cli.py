@@ -50,14 +50,23 @@ def _run_progress(min_interval_s: float = 2.0):
     """A ``progress(fraction, time_ms)`` callback printing at most every ``min_interval_s``."""
     start = time.perf_counter()
     last = [start]
+    clock = [start]  # when stepping began
 
     def report(fraction: float, time_ms: float) -> None:
         now = time.perf_counter()
+        if fraction == 0.0:  # the backend is ready: time left is timed from here
+            if now - start > 1.0:
+                _progress(f"  ready after {now - start:.1f} s (a new channel set's kernel is "
+                          "compiled once, then cached)")
+            last[0] = now
+            clock[0] = now
+            return
         if now - last[0] < min_interval_s and fraction < 1.0:
             return
         last[0] = now
         elapsed = now - start
-        left = elapsed * (1.0 - fraction) / fraction if fraction > 0 else float("nan")
+        stepping = now - clock[0]
+        left = stepping * (1.0 - fraction) / fraction
         _progress(f"  {100 * fraction:5.1f} %  t = {time_ms:.1f} ms  "
                   f"({elapsed:.1f} s elapsed, about {left:.1f} s left)")
 

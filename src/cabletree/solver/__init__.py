@@ -96,9 +96,11 @@ def simulate(cell: CellModel, settings: RunSettings, *, initial_state: SolverSta
     backend : {"auto", "reference", "compiled"}
         Which implementation steps the equations (they agree to round-off).
     progress : callable, optional
-        Called as ``progress(fraction_done, time_ms)`` after each of
-        ``progress_chunks`` pieces of the run.  The run is then integrated piece
-        by piece, continuing the exact state, so the result is unchanged.
+        Called as ``progress(fraction_done, time_ms)``: once with 0 when the
+        backend is ready (the first run of a new channel set compiles its
+        kernel first), then after each of ``progress_chunks`` pieces of the run.
+        The run is then integrated piece by piece, continuing the exact state,
+        so the result is unchanged.
     progress_chunks : int
         Number of pieces when ``progress`` is given.
 
@@ -144,6 +146,9 @@ def simulate(cell: CellModel, settings: RunSettings, *, initial_state: SolverSta
         k = max(1, min(int(progress_chunks), n_records_total))
         pieces = [len(c) for c in np.array_split(np.arange(n_records_total), k)]
     start = _time.perf_counter()
+    stepper.prepare(settings)
+    if progress is not None:
+        progress(0.0, float(state.time_ms))
     chunks = []
     t0 = state.time_ms
     done = 0

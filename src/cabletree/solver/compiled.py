@@ -786,6 +786,11 @@ class CompiledStepper:
                 raise _diagnose(self.channels, self.cell.celsius, exc) from exc
         return self._kernels[tabulated]
 
+    def prepare(self, settings: RunSettings) -> None:
+        """Load (or compile, the first time for this channel set) the kernel ``settings`` need."""
+        tables = tables_for_settings(self.cell, settings, self._table_cache)
+        self.kernel(tuple(t is not None for t in tables))
+
     def run(self, settings: RunSettings, sched: StepSchedule, state: SolverState,
             record_index: np.ndarray):
         """Integrate ``sched.n_steps`` steps from ``state``.

@@ -493,6 +493,10 @@ class ReferenceStepper:
             return None
         return sched.injection_mid_nA[k] if which == "mid" else sched.injection_end_nA[k]
 
+    def prepare(self, settings: RunSettings) -> None:
+        """Build the rate tables ``settings`` ask for (nothing else to prepare)."""
+        tables_for_settings(self.cell, settings, self._table_cache)
+
     def run(self, settings: RunSettings, sched: StepSchedule, state: SolverState,
             record_index: np.ndarray):
         """Integrate ``sched.n_steps`` steps from ``state``.
