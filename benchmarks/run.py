@@ -136,12 +136,12 @@ def time_run(cell, backend, n_steps, repeats, dt=0.025):
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     # scratch arrays allocated inside the compiled kernel are invisible to tracemalloc:
-    # G, J, the eliminated diagonal, the right-hand side and the multipliers (N each)
-    # and two gate-loop rows of N per thread
+    # G, J, the eliminated diagonal and the right-hand side (N doubles each) and, per
+    # thread, rows of N for the gate loops (two doubles) and the rate tables (a double
+    # and an int32)
     threads = 2 if backend == "compiled_2threads" else 1
     n = cell.n_compartments
-    # (and per thread two float rows and one int32 row for the rate tables)
-    scratch = (5 * n + 3.5 * threads * n) * 8 if backend.startswith("compiled") else 0
+    scratch = (4 * n + 3.5 * threads * n) * 8 if backend.startswith("compiled") else 0
     return float(np.median(times)) / n_steps, (peak + scratch) / 1e6
 
 

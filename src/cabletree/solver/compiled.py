@@ -282,9 +282,9 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
     thread; with more threads, each thread calls it for the entries whose
     compartments lie in its own compartment range, so no two threads ever write
     the same element of ``G`` or ``J``; each thread has its own rows of scratch
-    ``w0``, ``w1``).  A
-    block on a contiguous run of compartments is called with views of ``v``,
-    ``G`` and ``J`` starting at its first compartment and indexes them directly.
+    ``w0``, ``w1``, ``wf``, ``wi``).  A block on a contiguous run of compartments
+    is called with views of ``v``, ``G`` and ``J`` starting at its first
+    compartment and indexes them directly.
     Any other block first gathers ``v`` into a contiguous scratch array, runs the
     same loops writing its conductances to a second scratch array, and then adds
     them to ``G`` and ``J`` through ``index``: a gather inside the rate loop keeps
@@ -393,7 +393,7 @@ def gates_and_currents(v, dt_gate, G, J, w0, w1, wf, wi, celsius{block_params}):
 @numba.njit(**_JIT)
 def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
             cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r, limit,
-            fixed_matrix, mult, factor_rheff,
+            fixed_matrix, factor_rheff,
             inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
             sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
             w0, w1, wf, wi, celsius{block_params}):
@@ -452,13 +452,14 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
     rheff = 2.0 / h if cn else 1.0 / h
     if fixed_matrix and rheff == factor_rheff[0]:
         # the matrix is the same as at the last factorisation: eliminate the
-        # right-hand side only, with the stored multipliers and pivots
+        # right-hand side only, with the stored reciprocal pivots (the multiplier
+        # offdiag[i] * d[i] is the product the factorisation used)
         for i in range(n):
             r[i] = cap[i] * rheff * v[i] + J[i]
         for q in range(inj_comp.size):  # only these entries of J left the leak
             J[inj_comp[q]] = leak_j[inj_comp[q]]
         for i in range(n - 1, 0, -1):
-            r[parent[i]] -= mult[i] * r[i]
+            r[parent[i]] -= (offdiag[i] * d[i]) * r[i]
     else:
         for i in range(n):
             c = cap[i] * rheff
@@ -473,7 +474,6 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
             rd = 1.0 / d[i]
             d[i] = rd
             f = offdiag[i] * rd
-            mult[i] = f
             d[p] -= f * offdiag[i]
             r[p] -= f * r[i]
         d[0] = 1.0 / d[0]
@@ -506,7 +506,6 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
     J = leak_j.copy()
     d = np.empty(n)
     r = np.empty(n)
-    mult = np.empty(n)
     # scratch of the gate loops, one row per thread (indexed by block entry: a
     # thread runs its blocks in turn, but two threads may be in different blocks)
     w0 = np.empty((N_CHUNKS, n))
@@ -552,7 +551,7 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
             eb = eb_full if h == dt else eb_half
             n_bad = substep(v, h, cn, dt_gate, inj_row, first_half, second_half, k, dt,
                     cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r,
-                    limit, fixed_matrix, mult, factor_rheff,
+                    limit, fixed_matrix, factor_rheff,
                     inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                     sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
                     w0, w1, wf, wi, celsius{block_args})
