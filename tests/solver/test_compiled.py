@@ -304,3 +304,62 @@ def test_two_threads_agree_with_one_thread_and_reference():
     _agree(out["ref"][0], out["two"][0])
     for a, b in zip(out["ref"][1].gates, out["two"][1].gates):
         _agree(a, b)
+
+
+def test_kernel_order_makes_the_proximal_distal_split_contiguous():
+    # reference: the definition of an elimination order (Hines 1984, Int J Biomed
+    # Comput 15:69-76): every compartment after its parent; and the A-type split of
+    # Migliore et al (1999) at 100 µm, which interleaves in the grid's depth order
+    from cabletree.channels import hoffman_gradient, ka_placements
+    from cabletree.solver.compiled import CompiledStepper, kernel_order
+    big = synthetic.random_tree(60, seed=5, samples_per_branch=4)
+    cell = build_cell(big, channels=[ChannelPlacement(hh_sodium, 0.12),
+                                     *ka_placements(hoffman_gradient(0.005))], celsius=24.0)
+    grid_contiguous = [b.index[-1] - b.index[0] + 1 == b.index.size for b in cell.channels]
+    assert not all(grid_contiguous)  # the case this ordering is for
+    order = kernel_order(cell.grid.parent, [b.index for b in cell.channels])
+    assert sorted(order.tolist()) == list(range(cell.n_compartments)) and order[0] == 0
+    position = np.empty_like(order)
+    position[order] = np.arange(order.size)
+    parent = position[cell.grid.parent[order][1:]]
+    assert np.all(parent < np.arange(1, order.size))
+    stepper = CompiledStepper(cell)
+    assert all(contig for _, _, contig, *_ in stepper.block_static)
+    # a block set that recurs further out along a path cannot be grouped: grid order
+    chain = np.array([-1, 0, 1, 2, 3])
+    assert np.array_equal(kernel_order(chain, [np.array([1, 3])]), np.arange(5))
+
+
+def test_kernel_order_runs_agree_with_reference_and_restore_grid_order():
+    # reference: the numpy backend, which works in grid order; states returned by
+    # the compiled backend (potentials, gates in each block's entry order) must
+    # continue a run exactly as the reference's do
+    from cabletree.channels import hoffman_gradient, ka_placements
+    from cabletree.solver.compiled import CompiledStepper
+    from cabletree.solver.plan import make_schedule
+    from cabletree.solver.reference import ReferenceStepper
+    big = synthetic.random_tree(60, seed=5, samples_per_branch=4)
+    base = build_cell(big, membrane=Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-65.0),
+                      channels=[ChannelPlacement(hh_sodium, 0.12),
+                                ChannelPlacement(hh_potassium, 0.036),
+                                *ka_placements(hoffman_gradient(0.005))],
+                      celsius=24.0)
+    far = int(np.argmax(base.grid.path_distance_um))
+    cell = base.with_inputs(recording_sites=all_compartment_sites(base.grid),
+                            injections=[CurrentInjection(Site("far", far),
+                                                         StepCurrent(0.3, 1.0, 6.0))])
+    comp = CompiledStepper(cell)
+    assert not np.array_equal(comp.order, np.arange(cell.n_compartments))
+    settings = RunSettings(4.0, 0.025)
+    idx = np.arange(cell.n_compartments)
+    state = resting_state(cell, -65.0)
+    ref = ReferenceStepper(cell)
+    r1 = ref.run(settings, make_schedule(cell, settings), state, idx)
+    c1 = comp.run(settings, make_schedule(cell, settings), state, idx)
+    _agree(r1[0], c1[0])
+    _agree(r1[1].v_mV, c1[1].v_mV)
+    for a, b in zip(r1[1].gates, c1[1].gates):
+        _agree(a, b)
+    r2 = ref.run(settings, make_schedule(cell, settings, t0_ms=4.0), r1[1], idx)
+    c2 = comp.run(settings, make_schedule(cell, settings, t0_ms=4.0), c1[1], idx)
+    _agree(r2[0], c2[0])

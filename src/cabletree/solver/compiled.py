@@ -733,8 +733,11 @@ def _diagnose(channels: tuple, celsius: float, exc: Exception) -> SolverError:
                        "run with backend='reference' and report this")
 
 
-def _flat_synapses(cell: CellModel, sched: StepSchedule):
-    """Every synapse group flattened into per-synapse arrays and step-sorted events."""
+def _flat_synapses(cell: CellModel, sched: StepSchedule, position: np.ndarray):
+    """Every synapse group flattened into per-synapse arrays and step-sorted events.
+
+    ``position[c]`` is the kernel position of grid compartment ``c``.
+    """
     comp, kind, ta, tb, rev, mg, weight = [], [], [], [], [], [], []
     ev_step, ev_syn, ev_off, ev_first = [], [], [], []
     base = 0
@@ -747,7 +750,7 @@ def _flat_synapses(cell: CellModel, sched: StepSchedule):
         else:
             a, b = k.tau_decay_ms, k.tau_rise_ms
             scale, code = double_exponential_peak(k.tau_rise_ms, k.tau_decay_ms)[1], 1
-        comp.append(grp.compartment)
+        comp.append(position[grp.compartment])
         kind.append(np.full(s, code, np.int64))
         ta.append(np.full(s, a))
         tb.append(np.full(s, b))
@@ -774,17 +777,82 @@ def _flat_synapses(cell: CellModel, sched: StepSchedule):
                 ev_first=cat(ev_first, np.bool_)[order])
 
 
-def _chunk_bounds(cell: CellModel, n_chunks: int) -> np.ndarray:
+def kernel_order(parent: np.ndarray, block_indices) -> np.ndarray:
+    """The compartment order of the kernel: channel blocks in contiguous runs.
+
+    A channel block whose compartments are contiguous is updated through views
+    with no gather or scatter (measured 2.6 ns per compartment-step of 24.7 for
+    HH + A-type, whose proximal and distal kinetic types interleave in the grid's
+    depth order).  Compartments are grouped by the set of blocks they belong to;
+    the groups are placed parents first (a topological order of the group graph
+    given by the tree's edges, preferring next the ready group that shares most
+    blocks with the one just placed) and each group keeps the grid's depth order
+    inside it, so ``parent[i] < i`` still holds in the new numbering and the
+    elimination's neighbouring iterations stay independent.  If the groups cannot
+    be ordered parents first (a block set that recurs further out along a path),
+    the grid order is kept.
+
+    Parameters
+    ----------
+    parent : ndarray of int64, shape (n,)
+        Parent of each compartment in grid order, -1 for the root; ``parent[i] < i``.
+    block_indices : sequence of ndarray of int64
+        Compartments (grid order, increasing) of each channel block.
+
+    Returns
+    -------
+    ndarray of int64, shape (n,)
+        ``order[i]`` is the grid compartment at kernel position ``i``; ``order[0] == 0``.
+    """
+    n = parent.size
+    member = np.zeros((n, len(block_indices)), dtype=bool)
+    for b, idx in enumerate(block_indices):
+        member[idx, b] = True
+    signatures, group = np.unique(member, axis=0, return_inverse=True)
+    group = group.reshape(-1)
+    n_groups = signatures.shape[0]
+    if n_groups == 1:
+        return np.arange(n, dtype=np.int64)
+    child = np.arange(1, n)
+    cross = group[parent[1:]] != group[child]
+    edges = set(zip(group[parent[1:]][cross].tolist(), group[child][cross].tolist()))
+    indegree = np.zeros(n_groups, dtype=np.int64)
+    successors: dict = {g: [] for g in range(n_groups)}
+    for a, b in edges:
+        indegree[b] += 1
+        successors[a].append(b)
+    placed: list = []
+    ready = [int(g) for g in np.flatnonzero(indegree == 0)]
+    while ready:
+        last = signatures[placed[-1]] if placed else signatures[group[0]]
+        # most blocks shared with the group just placed; then the lowest group number
+        pick = max(ready, key=lambda g: (int(np.sum(signatures[g] & last)), -g))
+        if not placed and group[0] in ready:
+            pick = int(group[0])  # the root's group first
+        ready.remove(pick)
+        placed.append(pick)
+        for b in successors[pick]:
+            indegree[b] -= 1
+            if indegree[b] == 0:
+                ready.append(b)
+    if len(placed) < n_groups or placed[0] != group[0]:
+        return np.arange(n, dtype=np.int64)
+    rank = np.empty(n_groups, dtype=np.int64)
+    rank[np.asarray(placed)] = np.arange(n_groups)
+    return np.argsort(rank[group], kind="stable").astype(np.int64)
+
+
+def _chunk_bounds(n: int, blocks, n_chunks: int) -> np.ndarray:
     """Compartment boundaries splitting the gate work into ``n_chunks`` ranges.
 
-    Each compartment is weighted by the number of gates (plus one per channel for
-    the conductance) it carries, and the ranges hold about equal total weight.
-    Returns ``n_chunks + 1`` increasing compartment indices from 0 to N.
+    ``blocks`` holds (channel, kernel positions) of every channel block.  Each
+    compartment is weighted by the number of gates (plus one per channel for the
+    conductance) it carries, and the ranges hold about equal total weight.
+    Returns ``n_chunks + 1`` increasing kernel positions from 0 to N.
     """
-    n = cell.n_compartments
     work = np.ones(n)
-    for block in cell.channels:
-        work[block.index] += len(block.channel.gates) + 1
+    for channel, positions in blocks:
+        work[positions] += len(channel.gates) + 1
     cum = np.cumsum(work)
     inner = np.searchsorted(cum, cum[-1] * np.arange(1, n_chunks) / n_chunks)
     return np.concatenate([[0], inner, [n]]).astype(np.int64)
@@ -812,25 +880,44 @@ class CompiledStepper:
         self.cell = cell
         self.threads = int(threads)
         grid = cell.grid
-        g = np.ascontiguousarray(cell.axial_conductance_uS, dtype=float)
+        n = cell.n_compartments
+        # the kernel numbers compartments its own way (kernel_order): every
+        # per-compartment array below is in that order, and run() maps states,
+        # inputs and records between it and the grid's order
+        self.order = kernel_order(np.asarray(grid.parent, dtype=np.int64),
+                                  [b.index for b in cell.channels])
+        self.position = np.empty(n, dtype=np.int64)
+        self.position[self.order] = np.arange(n)
+        order = self.order
+        g = np.ascontiguousarray(cell.axial_conductance_uS[order], dtype=float)
         self.offdiag = -g
-        self.axial_diag = cell.axial_diagonal_uS
-        self.parent = np.ascontiguousarray(grid.parent, dtype=np.int64)
-        self.leak_g = np.ascontiguousarray(cell.leak_uS, dtype=float)
-        self.leak_j = self.leak_g * cell.leak_reversal_mV
-        self.cap = np.ascontiguousarray(cell.capacitance_nF, dtype=float)
+        self.axial_diag = np.ascontiguousarray(cell.axial_diagonal_uS[order])
+        parent = np.asarray(grid.parent, dtype=np.int64)[order]
+        parent[1:] = self.position[parent[1:]]
+        self.parent = np.ascontiguousarray(parent)
+        self.leak_g = np.ascontiguousarray(cell.leak_uS[order], dtype=float)
+        self.leak_j = self.leak_g * cell.leak_reversal_mV[order]
+        self.cap = np.ascontiguousarray(cell.capacitance_nF[order], dtype=float)
         self.channels = tuple(b.channel for b in cell.channels)
-        bounds = _chunk_bounds(cell, self.threads)
-        self.block_static = []
+        # block entries sorted by kernel position; entry_order[b] maps them to the
+        # block's own (grid) entry order, in which gate states are stored
+        self.entry_order = []
+        positions = []
         for block in cell.channels:
-            idx = np.ascontiguousarray(block.index, dtype=np.int64)
+            pos = self.position[np.asarray(block.index, dtype=np.int64)]
+            e = np.argsort(pos, kind="stable")
+            self.entry_order.append(e)
+            positions.append(np.ascontiguousarray(pos[e]))
+        bounds = _chunk_bounds(n, zip(self.channels, positions), self.threads)
+        self.block_static = []
+        for block, idx, e in zip(cell.channels, positions, self.entry_order):
             contig = bool(idx.size == 0 or (idx[-1] - idx[0] + 1 == idx.size))
             self.block_static.append((
                 idx, np.searchsorted(idx, bounds).astype(np.int64), contig,
-                np.ascontiguousarray(block.parameters, dtype=float).reshape(
-                    len(block.channel.parameter_names), idx.size),
-                np.ascontiguousarray(block.gmax_uS, dtype=float),
-                np.ascontiguousarray(block.reversal_mV, dtype=float),
+                np.ascontiguousarray(np.asarray(block.parameters, dtype=float).reshape(
+                    len(block.channel.parameter_names), idx.size)[:, e]),
+                np.ascontiguousarray(np.asarray(block.gmax_uS, dtype=float)[e]),
+                np.ascontiguousarray(np.asarray(block.reversal_mV, dtype=float)[e]),
                 float(block.channel.temperature_factor(cell.celsius))))
         self.contiguous = tuple(bs[2] for bs in self.block_static)
         # without channels or synapses the matrix changes only with the step size,
@@ -871,10 +958,12 @@ class CompiledStepper:
         """
         tables = tables_for_settings(self.cell, settings, self._table_cache)
         kernel = self.kernel(tuple(t is not None for t in tables))
-        v = np.array(state.v_mV, dtype=float)
-        gates = [np.array(x, dtype=float).reshape(len(b.channel.gates), b.index.size)
-                 for b, x in zip(self.cell.channels, state.gates)]
-        syn = _flat_synapses(self.cell, sched)
+        pos = self.position
+        v = np.ascontiguousarray(np.asarray(state.v_mV, dtype=float)[self.order])
+        gates = [np.ascontiguousarray(
+                     np.asarray(x, dtype=float).reshape(len(b.channel.gates), b.index.size)[:, e])
+                 for b, x, e in zip(self.cell.channels, state.gates, self.entry_order)]
+        syn = _flat_synapses(self.cell, sched, pos)
         n_syn = syn["syn_comp"].size
         sa = np.concatenate([s[0] for s in state.synapse_states]) if n_syn else np.zeros(0)
         sb = np.concatenate([s[1] for s in state.synapse_states]) if n_syn else np.zeros(0)
@@ -885,7 +974,7 @@ class CompiledStepper:
         for name, h in (("full", dt), ("half", 0.5 * dt)):
             decay[f"ea_{name}"] = np.exp(-h / syn["syn_tau_a"])
             decay[f"eb_{name}"] = np.exp(-h / syn["syn_tau_b"])
-        rec_idx = np.ascontiguousarray(record_index, dtype=np.int64)
+        rec_idx = np.ascontiguousarray(pos[np.asarray(record_index, dtype=np.int64)])
         records = np.empty((sched.n_records, rec_idx.size))
         m = sched.injection_compartment.size
         inj_mid = np.ascontiguousarray(sched.injection_mid_nA, dtype=float).reshape(sched.n_steps, m)
@@ -904,7 +993,8 @@ class CompiledStepper:
                 self.fixed_matrix,
                 self.cap, self.leak_g, self.leak_j, self.axial_diag, self.offdiag, self.parent,
                 v, records, rec_idx,
-                np.ascontiguousarray(sched.injection_compartment, dtype=np.int64), inj_mid, inj_end,
+                np.ascontiguousarray(pos[np.asarray(sched.injection_compartment, dtype=np.int64)]),
+                inj_mid, inj_end,
                 syn["syn_comp"], syn["syn_kind"], syn["syn_tau_a"], syn["syn_tau_b"],
                 syn["syn_rev"], syn["syn_mg"], syn["syn_weight"], sa, sb,
                 decay["ea_full"], decay["eb_full"], decay["ea_half"], decay["eb_half"],
@@ -917,15 +1007,20 @@ class CompiledStepper:
         if bad_step >= 0:
             t = sched.t0_ms + (bad_step + 1) * dt
             limit = settings.max_abs_v_mV
-            c = int(bad_comp)
+            c = int(self.order[bad_comp])
             raise NumericalInstabilityError(
-                f"membrane potential {float(v[c])!r} mV at compartment {c} (path distance "
+                f"membrane potential {float(v[bad_comp])!r} mV at compartment {c} (path distance "
                 f"{self.cell.grid.path_distance_um[c]:.1f} µm) at t = {t:.6g} ms is NaN or "
                 f"beyond ±{limit} mV; reduce dt_ms or check the channel densities",
                 time_ms=t, compartment=c)
         self.n_steps_done += sched.n_steps
         split = np.cumsum([g.compartment.size for g in self.cell.synapses])[:-1]
         syn_states = tuple(np.array([a, b]) for a, b in zip(np.split(sa, split), np.split(sb, split)))
-        final = SolverState(sched.t0_ms + sched.n_steps * dt, v, tuple(gates), float(lag),
+        grid_gates = []
+        for x, e in zip(gates, self.entry_order):
+            xg = np.empty_like(x)
+            xg[:, e] = x
+            grid_gates.append(xg)
+        final = SolverState(sched.t0_ms + sched.n_steps * dt, v[pos], tuple(grid_gates), float(lag),
                             syn_states, tuple(b.channel.name for b in self.cell.channels))
         return records[:n_rec], final
