@@ -124,10 +124,13 @@ def _ka_channel(name, v_half_n_mV, zeta0, gmn, a0n, where):
         return 1.0 / (1.0 + np.exp(_ka_exponent(v, celsius, p.shift_mV, p.v_half_n_mV, zeta0)))
 
     def n_tau(v, celsius, p):
-        # unscaled tau; the floor is multiplied by qt so that tau / qt >= floor
+        # unscaled tau; the floor is multiplied by qt so that tau / qt >= floor.
+        # betan / (a0n (1 + alphan)) = betan n_inf / a0n: the reciprocal is the one
+        # n_inf takes, so a compiler that sees both computes it once
         x = _ka_exponent(v, celsius, p.shift_mV, p.v_half_n_mV, zeta0)
         qt = np.exp(np.log(5.0) * (celsius - 24.0) / 10.0)
-        return np.maximum(np.exp(gmn * x) / (a0n * (1.0 + np.exp(x))), _KA_TAU_N_FLOOR_MS * qt)
+        n_inf_value = 1.0 / (1.0 + np.exp(x))
+        return np.maximum(np.exp(gmn * x) * n_inf_value * (1.0 / a0n), _KA_TAU_N_FLOOR_MS * qt)
 
     def l_inf(v, celsius, p):
         return 1.0 / (1.0 + np.exp(_KA_ZETA_L * (v - _KA_V_HALF_L_MV)
@@ -225,8 +228,10 @@ def _kdr_n_inf(v, celsius, p):
 
 
 def _kdr_n_tau(v, celsius, p):
+    # betan / (a0 (1 + alphan)) = betan n_inf / a0 (n_inf's reciprocal, shared)
     x = _kdr_exponent(v, celsius)
-    return np.maximum(np.exp(_KDR_GM * x) / (_KDR_A0 * (1.0 + np.exp(x))), _KDR_TAU_FLOOR_MS)
+    n_inf_value = 1.0 / (1.0 + np.exp(x))
+    return np.maximum(np.exp(_KDR_GM * x) * n_inf_value * (1.0 / _KDR_A0), _KDR_TAU_FLOOR_MS)
 
 
 kdr = Channel(
