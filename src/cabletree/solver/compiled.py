@@ -27,9 +27,11 @@ the channel's rate functions on scalars, with ``p`` built per compartment as the
 channel's own namedtuple) and the time loop calling them in turn.  The rate
 functions are compiled with numba after replacing, recursively, every plain
 Python function they call (helpers, closures) by its compiled version, and
-``np.exp`` by :func:`fast_exp`, a branch-free exponential (range reduction to
-``|r| <= ln2/2`` and a degree-12 Taylor polynomial, within 2 ulp of the libm
-value) that the compiler can vectorise, unlike the libm call.  The generated
+``np.exp`` by :func:`fast_exp`, a branch-free, table-driven exponential (Tang
+1989; within 2 ulp of the libm value) that the compiler can vectorise, unlike
+the libm call.  Branch-free matters twice: the loops vectorise, and the
+optimiser sees that a gate's steady state and time constant share an
+exponential and computes it once.  The generated
 source is written to a file in the kernel cache directory named by a hash of
 all the code involved, so numba's on-disk cache (``cache=True``) lets later
 processes skip compilation; within a process kernels are kept per channel set.
@@ -43,6 +45,16 @@ Rate tables: with ``RunSettings(rate_table_step_mV=...)`` a block with uniform
 parameters reads its gates' steady states and rates from a table
 (:mod:`cabletree.solver.tables`) instead of calling its rate functions; the
 kernel for that combination is generated and cached like any other.
+
+Vector width: on processors with AVX-512 the kernels are compiled for 512-bit
+vectors (:data:`WIDE_VECTORS`; ``CABLETREE_VECTOR_BITS=256`` keeps LLVM's
+default of 256).
+
+Compartment order: the kernel numbers compartments its own way
+(:func:`kernel_order`), parents first as the elimination needs, with each
+channel block in one contiguous run where the tree allows, so its gate loops
+read and write plain views; :class:`CompiledStepper` maps states, inputs and
+records to and from the grid's order.
 
 Threads: ``CompiledStepper(cell, threads=2)`` splits the compartments into two
 ranges of about equal gate work and updates every channel block of one range on
