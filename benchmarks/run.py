@@ -137,11 +137,11 @@ def time_run(cell, backend, n_steps, repeats, dt=0.025):
     tracemalloc.stop()
     # scratch arrays allocated inside the compiled kernel are invisible to tracemalloc:
     # G, J, the eliminated diagonal and the right-hand side (N doubles each) and, per
-    # thread, rows of N for the gate loops (two doubles) and the rate tables (a double
-    # and an int32)
-    threads = 2 if backend == "compiled_2threads" else 1
-    n = cell.n_compartments
-    scratch = (4 * n + 3.5 * threads * n) * 8 if backend.startswith("compiled") else 0
+    # thread, five rows of doubles and one of int32 as long as a strip of the gate loops
+    scratch = 0
+    if backend.startswith("compiled"):
+        n = cell.n_compartments
+        scratch = 4 * n * 8 + stepper.threads * stepper.max_strip * (5 * 8 + 4)
     return float(np.median(times)) / n_steps, (peak + scratch) / 1e6
 
 

@@ -363,3 +363,37 @@ def test_kernel_order_runs_agree_with_reference_and_restore_grid_order():
     r2 = ref.run(settings, make_schedule(cell, settings, t0_ms=4.0), r1[1], idx)
     c2 = comp.run(settings, make_schedule(cell, settings, t0_ms=4.0), c1[1], idx)
     _agree(r2[0], c2[0])
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+@pytest.mark.parametrize("table_step_mV", [None, 0.05])
+def test_many_strips_agree_with_reference(monkeypatch, threads, table_step_mV):
+    # reference: the numpy backend.  Strips of 16 compartments split every block
+    # (contiguous or not) into many pieces per thread, each with its own entries
+    # of the small scratch rows
+    from cabletree.channels import hoffman_gradient, ih, ka_placements
+    from cabletree.solver import compiled
+    from cabletree.solver.plan import make_schedule
+    from cabletree.solver.reference import ReferenceStepper
+    monkeypatch.setattr(compiled, "STRIP_COMPARTMENTS", 16)
+    channels = [ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, 0.036),
+                *ka_placements(hoffman_gradient(0.005), boundary_um=100.0),
+                ChannelPlacement(ih, Linear(5e-5, 2e-7), Selector(branch_order=(2, 9)))]
+    base = build_cell(synthetic.random_tree(30, seed=4, samples_per_branch=3),
+                      membrane=Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-65.0),
+                      channels=channels, celsius=24.0)
+    cell = base.with_inputs(recording_sites=all_compartment_sites(base.grid),
+                            injections=[CurrentInjection(soma_site(base.grid),
+                                                         StepCurrent(0.5, 1.0, 6.0))])
+    stepper = compiled.CompiledStepper(cell, threads=threads)
+    assert stepper.thread_strips[-1] >= 4 and stepper.max_strip <= 16
+    assert any(not contig for _, _, contig, *_ in stepper.block_static)
+    settings = RunSettings(6.0, 0.025, rate_table_step_mV=table_step_mV)
+    idx = np.arange(cell.n_compartments)
+    state = resting_state(cell, -65.0)
+    ref = ReferenceStepper(cell).run(settings, make_schedule(cell, settings), state, idx)
+    got = stepper.run(settings, make_schedule(cell, settings), state, idx)
+    assert ref[0].max() > 0.0  # spikes
+    _agree(ref[0], got[0])
+    for a, b in zip(ref[1].gates, got[1].gates):
+        _agree(a, b)

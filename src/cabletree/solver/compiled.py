@@ -393,14 +393,12 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
     npar = len(channel.parameter_names)
     lines = ["@numba.njit(**_JIT)",
              f"def block_{b}(v, index, k0, k1, x, par, gmax, erev, celsius, phi, "
-             "dt_gate, G, J, w0, w1, wf, wi, tb, tv):",
+             "dt_gate, G, J, w0, w1, wf, wi, vg, gg, tb, tv):",
              "    if k0 < 0:  # never; tells the compiler k >= 0 (no negative-index wraparound)",
              "        return",
              "    dts = dt_gate * phi"]
     if not contiguous:
         lines += ["    m = k1 - k0",
-                  "    vg = np.empty(m)",
-                  "    gg = np.empty(m)",
                   "    for k in range(m):",
                   "        vg[k] = v[index[k0 + k]]"]
     vi = "v[k]" if contiguous else "vg[kk]"
@@ -418,26 +416,26 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
                   "        u = top if u > top else u",
                   "        c = np.floor(u)",
                   "        c = last if c > last else c",
-                  "        wf[k] = u - c",
-                  "        wi[k] = np.int32(c)"]
+                  "        wf[kk] = u - c",
+                  "        wi[kk] = np.int32(c)"]
     for j, gate in enumerate(channel.gates):
         step = "dts" if gate.temperature_scaled else "dt_gate"
         lines += ["    for kk in range(k1 - k0):",
                   "        k = k0 + kk"]
         if tabulated:
-            lines += ["        i = wi[k]",
-                      "        f = wf[k]",
+            lines += ["        i = wi[kk]",
+                      "        f = wf[kk]",
                       f"        a0 = tb[{j}, i, 0]",
                       f"        r0 = tb[{j}, i, 1]",
-                      f"        w0[k] = a0 + f * (tb[{j}, i + 1, 0] - a0)",
-                      f"        w1[k] = (r0 + f * (tb[{j}, i + 1, 1] - r0)) * -{step}"]
+                      f"        w0[kk] = a0 + f * (tb[{j}, i + 1, 0] - a0)",
+                      f"        w1[kk] = (r0 + f * (tb[{j}, i + 1, 1] - r0)) * -{step}"]
         elif gate.uses_rates:
             lines += [f"        vi = {vi}",
                       f"        p = {ptuple}",
                       f"        a = R_{b}_{j}_0(vi, celsius, p)",
                       f"        s = a + R_{b}_{j}_1(vi, celsius, p)",
-                      "        w0[k] = a * (1.0 / s)",
-                      f"        w1[k] = -{step} * s"]
+                      "        w0[kk] = a * (1.0 / s)",
+                      f"        w1[kk] = -{step} * s"]
         else:
             # both rate functions before either store: a store to w0 could alias
             # the parameter array for the compiler, which would then evaluate
@@ -446,12 +444,12 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
                       f"        p = {ptuple}",
                       f"        inf = R_{b}_{j}_0(vi, celsius, p)",
                       f"        tau = R_{b}_{j}_1(vi, celsius, p)",
-                      "        w0[k] = inf",
-                      f"        w1[k] = -{step} / tau"]
+                      "        w0[kk] = inf",
+                      f"        w1[kk] = -{step} / tau"]
         lines += ["    for kk in range(k1 - k0):",
                   "        k = k0 + kk",
-                  "        inf = w0[k]",
-                  f"        x[{j}, k] = inf + (x[{j}, k] - inf) * np.exp(w1[k])"]
+                  "        inf = w0[kk]",
+                  f"        x[{j}, k] = inf + (x[{j}, k] - inf) * np.exp(w1[kk])"]
     lines += ["    for kk in range(k1 - k0):",
               "        k = k0 + kk",
               "        g = gmax[k]"]
@@ -473,10 +471,18 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
 
 _KERNEL_TEMPLATE = '''
 @numba.njit(**_JIT_PAR)
-def gates_and_currents(v, dt_gate, G, J, w0, w1, wf, wi, celsius{block_params}):
-    # one parallel region per call: chunk t covers one range of compartments in
-    # every block (sp<b>[t]:sp<b>[t + 1] are the block entries in that range)
+def gates_and_currents(v, dt_gate, G, J, ws, wi, tp, celsius{block_params}):
+    # one parallel region per call: thread t updates strips tp[t] <= s < tp[t + 1],
+    # each a short range of compartments in every block (sp<b>[s]:sp<b>[s + 1] are
+    # the block entries in strip s), with its own scratch rows ws[t], wi[t]
     for t in numba.prange(N_CHUNKS):
+        w0 = ws[t, 0]
+        w1 = ws[t, 1]
+        wf = ws[t, 2]
+        vg = ws[t, 3]
+        gg = ws[t, 4]
+        wit = wi[t]
+        for s in range(tp[t], tp[t + 1]):
 {block_calls}
     return 0
 
@@ -487,10 +493,10 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
             fixed_matrix, factor_rheff,
             inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
             sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
-            w0, w1, wf, wi, celsius{block_params}):
+            ws, wi, tp, celsius{block_params}):
     n = v.size
     # G and J hold the leak on entry (set by the caller, then reset below)
-    gates_and_currents(v, dt_gate, G, J, w0, w1, wf, wi, celsius{block_args})
+    gates_and_currents(v, dt_gate, G, J, ws, wi, tp, celsius{block_args})
     ns = sa.size
     if ns > 0:
         for s in range(ns):
@@ -591,18 +597,17 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
         inj_comp, inj_mid, inj_end,
         syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight, sa, sb,
         ea_full, eb_full, ea_half, eb_half, ev_ptr, ev_syn, ev_off, ev_first,
-        celsius{block_params}):
+        tp, max_strip, celsius{block_params}):
     n = v.size
     G = leak_g.copy()
     J = leak_j.copy()
     d = np.empty(n)
     r = np.empty(n)
-    # scratch of the gate loops, one row per thread (indexed by block entry: a
-    # thread runs its blocks in turn, but two threads may be in different blocks)
-    w0 = np.empty((N_CHUNKS, n))
-    w1 = np.empty((N_CHUNKS, n))
-    wf = np.empty((N_CHUNKS, n))  # rate tables: grid cell and fraction
-    wi = np.empty((N_CHUNKS, n), dtype=np.int32)
+    # scratch of the gate loops, rows of one strip per thread (indexed by entry
+    # within the strip): steady states, exponents, table fractions, gathered
+    # potentials and conductances of non-contiguous blocks; table grid cells
+    ws = np.empty((N_CHUNKS, 5, max_strip))
+    wi = np.empty((N_CHUNKS, max_strip), dtype=np.int32)
     factor_rheff = np.full(1, np.nan)  # h-factor of the stored factorisation (none yet)
     sa_old = np.empty(sa.size)
     sb_old = np.empty(sa.size)
@@ -645,7 +650,7 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
                     limit, fixed_matrix, factor_rheff,
                     inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                     sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
-                    w0, w1, wf, wi, celsius{block_args})
+                    ws, wi, tp, celsius{block_args})
             lag = new_lag
         if n_bad > 0:
             bad = 0
@@ -666,16 +671,16 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple) -> str:
                      for b in range(len(channels)))
     calls = []
     for b, c in enumerate(contiguous):
-        rng = f"sp{b}[t], sp{b}[t + 1]"
+        rng = f"sp{b}[s], sp{b}[s + 1]"
         if c:
             view = f"idx{b}[0]:idx{b}[0] + gm{b}.size"
-            calls.append(f"        if gm{b}.size > 0:\n"
-                         f"            block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, gm{b}, "
-                         f"er{b}, celsius, phi{b}, dt_gate, G[{view}], J[{view}], w0[t], w1[t], "
-                         f"wf[t], wi[t], tb{b}, tv{b})\n")
+            calls.append(f"            if sp{b}[s] < sp{b}[s + 1]:\n"
+                         f"                block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, "
+                         f"gm{b}, er{b}, celsius, phi{b}, dt_gate, G[{view}], J[{view}], w0, w1, "
+                         f"wf, wit, vg, gg, tb{b}, tv{b})\n")
         else:
-            calls.append(f"        block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
-                         f"celsius, phi{b}, dt_gate, G, J, w0[t], w1[t], wf[t], wi[t], tb{b}, "
+            calls.append(f"            block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
+                         f"celsius, phi{b}, dt_gate, G, J, w0, w1, wf, wit, vg, gg, tb{b}, "
                          f"tv{b})\n")
     calls = "".join(calls)
     head = ("# generated by cabletree.solver.compiled; do not edit\n"
@@ -683,7 +688,7 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple) -> str:
     blocks = "\n".join(_block_source(b, ch, c, tab)
                         for b, (ch, c, tab) in enumerate(zip(channels, contiguous, tabulated)))
     return (head + blocks + _KERNEL_TEMPLATE.format(block_params=params, block_args=params,
-                                                    block_calls=calls or "        pass\n"))
+                                                    block_calls=calls or "            pass\n"))
 
 
 _KERNELS: dict = {}
@@ -862,6 +867,36 @@ def kernel_order(parent: np.ndarray, block_indices) -> np.ndarray:
     return np.argsort(rank[group], kind="stable").astype(np.int64)
 
 
+#: Compartments per strip of the gate loops: each thread updates its range strip by
+#: strip, every channel block in turn, so the gate scratch stays in the level-1 cache.
+STRIP_COMPARTMENTS = 4096
+
+
+def _strip_bounds(n: int, blocks, n_threads: int, strip: int):
+    """Strips of the gate loops: boundaries, and the strips of each thread.
+
+    The compartments are split into ``n_threads`` ranges of about equal gate work
+    (:func:`_chunk_bounds`), and each range into strips of at most ``strip``
+    compartments.
+
+    Returns
+    -------
+    bounds : ndarray of int64
+        Increasing kernel positions from 0 to ``n``; strip ``s`` is
+        ``bounds[s] <= i < bounds[s + 1]``.
+    thread_strips : ndarray of int64, shape (n_threads + 1,)
+        Thread ``t`` updates strips ``thread_strips[t] <= s < thread_strips[t + 1]``.
+    """
+    ranges = _chunk_bounds(n, blocks, n_threads)
+    bounds = [0]
+    thread_strips = [0]
+    for a, b in zip(ranges[:-1], ranges[1:]):
+        k = max(1, -(-(int(b) - int(a)) // strip))
+        bounds += [int(a) + (q * (int(b) - int(a))) // k for q in range(1, k)] + [int(b)]
+        thread_strips.append(len(bounds) - 1)
+    return np.asarray(bounds, dtype=np.int64), np.asarray(thread_strips, dtype=np.int64)
+
+
 def _chunk_bounds(n: int, blocks, n_chunks: int) -> np.ndarray:
     """Compartment boundaries splitting the gate work into ``n_chunks`` ranges.
 
@@ -928,7 +963,9 @@ class CompiledStepper:
             e = np.argsort(pos, kind="stable")
             self.entry_order.append(e)
             positions.append(np.ascontiguousarray(pos[e]))
-        bounds = _chunk_bounds(n, zip(self.channels, positions), self.threads)
+        bounds, self.thread_strips = _strip_bounds(n, list(zip(self.channels, positions)),
+                                                   self.threads, STRIP_COMPARTMENTS)
+        self.max_strip = int(max(1, np.max(np.diff(bounds))))
         self.block_static = []
         for block, idx, e in zip(cell.channels, positions, self.entry_order):
             contig = bool(idx.size == 0 or (idx[-1] - idx[0] + 1 == idx.size))
@@ -1019,7 +1056,7 @@ class CompiledStepper:
                 syn["syn_rev"], syn["syn_mg"], syn["syn_weight"], sa, sb,
                 decay["ea_full"], decay["eb_full"], decay["ea_half"], decay["eb_half"],
                 syn["ev_ptr"], syn["ev_syn"], syn["ev_off"], syn["ev_first"],
-                float(self.cell.celsius), *block_args)
+                self.thread_strips, self.max_strip, float(self.cell.celsius), *block_args)
         try:
             bad_step, bad_comp, n_rec, lag = kernel(*args)
         except numba.core.errors.NumbaError as exc:
