@@ -1,9 +1,10 @@
-"""The reference backend's branch/Schur tree solver against plain level elimination.
+"""The reference backend's heavy-path tree solver against plain level elimination.
 
 Both are exact direct methods for the same symmetric tree system (Hines 1984,
 Int J Biomed Comput 15:69-76, for the elimination order); they must agree to
 round-off, and both must satisfy ``A x = r`` to round-off (checked with the
-matrix assembled independently by scipy.sparse).
+matrix assembled independently by scipy.sparse, and against scipy's sparse
+direct solver).
 """
 
 from __future__ import annotations
@@ -11,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.sparse as sp
+import scipy.sparse.linalg as spla
 
 from cabletree.cell import CurrentInjection, build_cell
 from cabletree.channels import hh_potassium, hh_sodium
@@ -20,7 +22,8 @@ from cabletree.profiles import ChannelPlacement
 from cabletree.sites import soma_site
 from cabletree.solver import RunSettings, simulate
 from cabletree.morphology import synthetic
-from cabletree.solver.reference import BranchSchurSolver, TreeMatrix
+from cabletree.errors import CableTreeError, NumericalInstabilityError
+from cabletree.solver.reference import HeavyPathSolver, TreeMatrix, _heavy_paths
 
 
 def _system(parent, seed):
@@ -51,15 +54,18 @@ def _parents():
         yield f"random{seed}", grid.parent
     grid = build_grid(synthetic.pyramidal_cell())
     yield "pyramidal", grid.parent
+    # a node with three children and a root with two single-compartment children:
+    # several path heads of one level hang from the same compartment
+    yield "fan", np.array([-1, 0, 0, 1, 1, 1, 3, 4, 5, 5])
 
 
 @pytest.mark.parametrize("name,parent", list(_parents()))
-def test_schur_solver_matches_level_elimination(name, parent):
+def test_heavy_path_solver_matches_level_elimination(name, parent):
     levels = np.concatenate([[0], np.cumsum(np.bincount(_depth(parent)))]).astype(np.int64)
     for seed in range(2):
         d, b, r = _system(parent, seed)
         x_tree = TreeMatrix(parent, levels).solve(d, b, r)
-        x_schur = BranchSchurSolver(parent, b).solve(d, b, r)
+        x_schur = HeavyPathSolver(parent, b).solve(d, b, r)
         scale = np.max(np.abs(x_tree))
         assert np.max(np.abs(x_schur - x_tree)) <= 1e-12 * scale
         a = _matrix(parent, d, b)
@@ -75,13 +81,13 @@ def _depth(parent):
 
 
 @pytest.mark.parametrize("name,parent", list(_parents()))
-def test_schur_solver_reuses_its_factorisation_only_for_the_same_diagonal(name, parent):
+def test_heavy_path_solver_reuses_its_factorisation_only_for_the_same_diagonal(name, parent):
     # reference: the same Hines (1984) level elimination, solved afresh each time
     levels = np.concatenate([[0], np.cumsum(np.bincount(_depth(parent)))]).astype(np.int64)
     d, b, r = _system(parent, 0)
     _, _, r2 = _system(parent, 1)
     d2 = d + np.random.default_rng(1).uniform(0.0, 0.3, d.size)  # still diagonally dominant
-    solver = BranchSchurSolver(parent, b)
+    solver = HeavyPathSolver(parent, b)
     tree = TreeMatrix(parent, levels)
     work = d.copy()  # the caller may refill the same array between calls
     for diag, rhs in ((d, r), (d, r2), (d2, r2), (d2, r), (d, r)):
@@ -89,6 +95,47 @@ def test_schur_solver_reuses_its_factorisation_only_for_the_same_diagonal(name, 
         x = solver.solve(work, b, rhs)
         x_tree = tree.solve(diag, b, rhs)
         assert np.max(np.abs(x - x_tree)) <= 1e-12 * np.max(np.abs(x_tree))
+
+
+@pytest.mark.parametrize("name,parent", list(_parents()))
+def test_heavy_path_solver_matches_scipy_spsolve(name, parent):
+    # reference: scipy.sparse.linalg.spsolve (SuperLU) on the independently assembled
+    # matrix; tolerance 1e-12 relative to the largest |x| (both are direct solves of a
+    # well-conditioned, diagonally dominant system)
+    d, b, r = _system(parent, 3)
+    exact = np.atleast_1d(spla.spsolve(_matrix(parent, d, b).tocsc(), r))
+    out = np.full(parent.size, np.nan)
+    x = HeavyPathSolver(parent, b).solve(d, b, r, out=out)
+    assert x is out
+    assert np.max(np.abs(x - exact)) <= 1e-12 * np.max(np.abs(exact))
+
+
+@pytest.mark.parametrize("name,parent", list(_parents()))
+def test_heavy_paths_cover_the_tree_in_at_most_log2_n_levels(name, parent):
+    # reference: Sleator & Tarjan (1983, J Comput Syst Sci 26:362-391): a root-to-leaf
+    # walk changes heavy path at most log2(n) times, so there are at most
+    # floor(log2(n)) + 1 levels; each path runs from its far end to its head, every
+    # compartment's successor on a path is its parent
+    order, path_level, path_start = _heavy_paths(parent)
+    n = parent.size
+    assert np.array_equal(np.sort(order), np.arange(n))
+    assert path_level[0] == 0 and np.all(np.diff(path_level) >= 0)
+    assert path_level[-1] <= int(np.floor(np.log2(n)))
+    assert path_start[0] == 0 and path_start[-1] == n and np.all(np.diff(path_start) > 0)
+    for s, e in zip(path_start[:-1], path_start[1:]):
+        assert np.all(parent[order[s:e - 1]] == order[s + 1:e])
+
+
+def test_heavy_path_solver_rejects_a_matrix_that_is_not_positive_definite():
+    # reference: a symmetric matrix with a negative diagonal entry is not positive
+    # definite, which LAPACK dpttrf reports (info > 0)
+    parent = np.arange(-1, 9)
+    d, b, r = _system(parent, 0)
+    d[4] = -1.0
+    with pytest.raises(NumericalInstabilityError) as info:
+        HeavyPathSolver(parent, b).solve(d, b, r)
+    assert isinstance(info.value, CableTreeError)
+    assert 0 <= info.value.compartment < parent.size
 
 
 def test_tree_matrix_factor_then_solve_equals_solve():

@@ -9,7 +9,7 @@ import pytest
 
 from cabletree.grid import SpacingRule, build_grid
 from cabletree.morphology import synthetic
-from cabletree.solver.reference import BranchSchurSolver, TreeMatrix
+from cabletree.solver.reference import HeavyPathSolver, TreeMatrix
 
 
 def _system(grid, seed):
@@ -41,6 +41,6 @@ def test_solvers_match_dense(name, piece_um):
     A, d, b, r = _system(grid, seed=grid.n_compartments)
     exact = np.linalg.solve(A, r)
     level = TreeMatrix(grid.parent, grid.level_bounds()).solve(d, b, r)
-    schur = BranchSchurSolver(grid.parent, b).solve(d, b, r)
+    schur = HeavyPathSolver(grid.parent, b).solve(d, b, r)
     np.testing.assert_allclose(level, exact, rtol=1e-10, atol=1e-12)
     np.testing.assert_allclose(schur, exact, rtol=1e-10, atol=1e-12)

@@ -1,31 +1,37 @@
 """The numpy reference backend: clear, vectorised, no compiler needed.
 
 Every step is vectorised over compartments; the only Python loops run over
-channel blocks, gates and depth levels of the tree, never over compartments.
-The tree system is solved exactly in O(N):
+channel blocks (in chunks of at most :data:`GATE_CHUNK` compartments), gates and
+levels of the tree, never over single compartments.  The tree system is solved
+exactly in O(N):
 
 - :class:`TreeMatrix`: Gaussian elimination from the leaves to the root and
   back-substitution (Hines 1984, Int J Biomed Comput 15:69-76), one depth level
   at a time.  Simple, but a Python-level loop over every depth level: slow for
   deep trees (a 1000-compartment cable has 1000 levels).
-- :class:`BranchSchurSolver` (used by :class:`ReferenceStepper`): the same
-  system split into the branch points (and the root) and the unbranched chains
-  between them.  All chains form one block-diagonal symmetric positive-definite
-  tridiagonal system, factored by one LAPACK ``dpttrf`` call and solved by
-  ``dpttrs``; the Schur complement on the branch points is again a tree matrix,
-  solved by :class:`TreeMatrix` over the far fewer levels of the tree of branch
-  points (Golub & Van Loan, Matrix Computations, 4th ed. 2013, §4.3 and §3.2.11
-  on block elimination).  Same answer as :class:`TreeMatrix` to round-off.  The
-  factorisation is kept while the diagonal is unchanged (a passive cell at a
-  fixed step), so such a step costs the right-hand side solve only.
+- :class:`HeavyPathSolver` (used by :class:`ReferenceStepper`): the same
+  elimination done path by path.  Heavy-path decomposition (Sleator & Tarjan
+  1983, J Comput Syst Sci 26:362-391) cuts the tree into unbranched paths in at
+  most ``log2(N) + 1`` levels; the paths of one level form one block-diagonal
+  symmetric positive-definite tridiagonal system, factored by one LAPACK
+  ``dpttrf`` call and solved by ``dpttrs``.  Each path's head is then eliminated
+  into the compartment it hangs from, one level up (block elimination, Golub &
+  Van Loan, Matrix Computations, 4th ed. 2013, §3.2.11), and back-substitution
+  solves every level again, from the root down, with its head's right-hand side
+  updated.  A step costs one ``dpttrf`` and two ``dpttrs`` sweeps plus a few
+  vector operations per level; the factorisation is kept while the diagonal is
+  unchanged (a passive cell at a fixed step), so such a step costs the two
+  ``dpttrs`` sweeps only.  Same answer as :class:`TreeMatrix` to round-off.
 
-The work arrays of a step (conductances, diagonal, right-hand side) are kept on
-the stepper and gate states are updated in place.
+The work arrays of a step (conductances, diagonal, right-hand side, the tree
+solver's path-ordered arrays) are kept on the stepper and gate states are
+updated in place.
 """
 
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 
@@ -35,7 +41,7 @@ from ..inputs import double_exponential_peak, mg_block
 from .plan import RunSettings, SolverState, StepSchedule
 from .tables import interpolate, tables_for_settings
 
-__all__ = ["TreeMatrix", "BranchSchurSolver", "ReferenceStepper"]
+__all__ = ["TreeMatrix", "HeavyPathSolver", "ReferenceStepper"]
 
 
 class TreeMatrix:
@@ -131,8 +137,65 @@ class TreeMatrix:
         return self.solve_factored(self.factor(d, b), b, r)
 
 
-class BranchSchurSolver:
-    """Solve the tree system by chains (one batched tridiagonal solve) and a Schur complement.
+class _PathLevel(NamedTuple):
+    """The paths of one level of a :class:`HeavyPathSolver`, in path-ordered positions."""
+
+    start: int                 # first position of the level's paths
+    stop: int                  # one past the last
+    head: np.ndarray           # position of each path's head (its last position)
+    attach: np.ndarray         # position of the compartment each head hangs from (empty at level 0)
+    beta: np.ndarray           # coupling of each head to its attachment point
+    beta2: np.ndarray          # beta squared
+    distinct: bool             # no two heads of the level hang from the same compartment
+
+
+def _heavy_paths(parent: np.ndarray):
+    """Heavy-path decomposition of a tree (Sleator & Tarjan 1983, J Comput Syst Sci 26:362-391).
+
+    Parameters
+    ----------
+    parent : ndarray of int64, shape (n,)
+        Parent index, ``parent[i] < i``, -1 for the root.
+
+    Returns
+    -------
+    (order, path_level, path_start) : (ndarray of int64, ndarray of int64, ndarray of int64)
+        ``order[k]`` is the compartment at position ``k``: paths one after the
+        other, sorted by level (the root's path first), each from its far end to
+        its head.  ``path_level[j]`` is the level of path ``j`` and
+        ``path_start`` the first position of each path followed by ``n``.
+    """
+    par = parent.tolist()
+    n = len(par)
+    size = [1] * n
+    for i in range(n - 1, 0, -1):
+        size[par[i]] += size[i]
+    heavy = [-1] * n
+    best = [0] * n
+    for i in range(1, n):  # ties go to the first child
+        p = par[i]
+        if size[i] > best[p]:
+            best[p] = size[i]
+            heavy[p] = i
+    level = [0] * n
+    for i in range(1, n):
+        p = par[i]
+        level[i] = level[p] + (heavy[p] != i)
+    heads = sorted((i for i in range(n) if i == 0 or heavy[par[i]] != i),
+                   key=lambda i: (level[i], i))
+    order, starts = [], []
+    for h in heads:
+        path = [h]
+        while heavy[path[-1]] >= 0:
+            path.append(heavy[path[-1]])
+        starts.append(len(order))
+        order.extend(reversed(path))
+    return (np.asarray(order, dtype=np.int64), np.asarray([level[h] for h in heads], np.int64),
+            np.asarray(starts + [n], dtype=np.int64))
+
+
+class HeavyPathSolver:
+    """Solve the tree system path by path: tridiagonal LAPACK solves, one level of paths at a time.
 
     Parameters
     ----------
@@ -144,180 +207,148 @@ class BranchSchurSolver:
 
     Notes
     -----
-    Branch points ``B`` are the root and every compartment with two or more
-    children; the others form chains, each hanging from a branch point ``P`` by
-    its first compartment and, unless it ends in a terminal, carrying a branch
-    point ``E`` below its last one.  With ``A_II`` the chains' tridiagonal block,
-    ``U0 = A_II⁻¹ e_first``, ``U1 = A_II⁻¹ e_last`` and ``z = A_II⁻¹ r_I`` (one
-    ``dptsv`` call), the Schur complement ``S = A_BB - A_BI A_II⁻¹ A_IB`` couples
-    each ``E`` only to its ``P``, so ``S`` is a tree matrix on ``B``.
+    The tree is cut into paths by heavy-path decomposition (Sleator & Tarjan
+    1983, J Comput Syst Sci 26:362-391): a compartment continues its parent's
+    path if it heads the largest subtree among its siblings and starts a new
+    path otherwise.  The level of a path is the number of paths begun on the
+    way down from the root, at most ``log2(n)``.  Each path is stored from its
+    far end to its head and all paths of one level lie side by side, one
+    block-diagonal symmetric positive-definite tridiagonal system.
 
-    ``U0``, ``U1``, ``S`` and the factorisations depend on the diagonal only: they
-    are computed by :meth:`factor` and reused by :meth:`solve` for as long as the
-    diagonal stays the same (a passive cell at a fixed step), so such a solve
-    costs one tridiagonal back-substitution with one right-hand side plus the
-    tree of branch points.  ``dptsv`` is ``dpttrf`` followed by ``dpttrs``, so
-    splitting them changes nothing in the arithmetic.
+    Leaf-to-root elimination (Hines 1984, Int J Biomed Comput 15:69-76) runs
+    one level at a time, deepest first: LAPACK ``dpttrf`` factors the level's
+    paths (``L D L^T``, ending at each head), ``dpttrs`` gives
+    ``z = A_path⁻¹ r_path``, and each head is eliminated into the compartment
+    ``P`` it hangs from, in the level above (block elimination, Golub & Van
+    Loan, Matrix Computations, 4th ed. 2013, §3.2.11): with ``β`` the head's
+    coupling to ``P`` and ``D`` the head's last pivot,
+    ``(A_path⁻¹)_{head,head} = 1/D``, so ``d_P -= β²/D`` and ``r_P -= β z_head``.
+    Back-substitution runs from the root level down: once ``x_P`` is known, the
+    path's right-hand side at its head becomes ``r_head - β x_P`` and one more
+    ``dpttrs`` gives the path exactly.  A step costs one ``dpttrf`` and two
+    ``dpttrs`` sweeps over the compartments plus a few vector operations per
+    level.
+
+    The factors depend on the diagonal only: :meth:`factor` computes them and
+    :meth:`solve` reuses them while the diagonal stays the same (a passive cell
+    at a fixed step), so such a solve costs the two ``dpttrs`` sweeps only.
     """
 
     def __init__(self, parent: np.ndarray, offdiag: np.ndarray):
         from scipy.linalg import lapack
         self._dpttrf, self._dpttrs = lapack.dpttrf, lapack.dpttrs
         parent = np.asarray(parent, dtype=np.int64)
+        b = np.asarray(offdiag, dtype=float)
         n = parent.size
         self.n = n
-        b = np.asarray(offdiag, dtype=float)
-        nchild = np.bincount(parent[1:], minlength=n) if n > 1 else np.zeros(n, np.int64)
-        is_b = nchild >= 2
-        is_b[0] = True
-        only_child = np.full(n, -1, dtype=np.int64)
-        kids = np.arange(1, n)
-        single = nchild[parent[1:]] == 1
-        only_child[parent[1:][single]] = kids[single]
-        heads = np.nonzero(~is_b & np.concatenate([[False], is_b[parent[1:]]]))[0]
-        order, chain_of, pos_head, pos_tail, below = [], [], [], [], []
-        for c, h in enumerate(heads):  # walk each chain once (setup only)
-            pos_head.append(len(order))
-            node = int(h)
-            while True:
-                order.append(node)
-                chain_of.append(c)
-                nxt = int(only_child[node]) if nchild[node] == 1 else -1
-                if nxt < 0:
-                    below.append(-1)
-                    break
-                if is_b[nxt]:
-                    below.append(nxt)
-                    break
-                node = nxt
-            pos_tail.append(len(order) - 1)
-        self.interior = np.asarray(order, dtype=np.int64)
-        m = self.interior.size
-        chain_of = np.asarray(chain_of, dtype=np.int64)
-        pos_head = np.asarray(pos_head, dtype=np.int64)
-        pos_tail = np.asarray(pos_tail, dtype=np.int64)
-        below = np.asarray(below, dtype=np.int64)
-        # chain tridiagonal: coupling between consecutive positions of one chain
-        same = chain_of[1:] == chain_of[:-1] if m > 1 else np.zeros(0, bool)
-        self.e = np.where(same, b[self.interior[1:]] if m > 1 else 0.0, 0.0)
-        self.head_pos, self.tail_pos = pos_head, pos_tail
-        self.chain_top = parent[heads]                      # P of each chain
-        self.beta_top = b[heads]                            # coupling head - P
-        has_e = below >= 0
-        self.e_chains = np.nonzero(has_e)[0]
-        self.chain_bottom = below[has_e]                    # E of those chains
-        self.beta_bottom = b[self.chain_bottom]             # coupling tail - E
-        rhs_unit = np.zeros((m, 2))
-        rhs_unit[pos_head, 0] = 1.0
-        rhs_unit[pos_tail[has_e], 1] = 1.0
-        self._unit = np.asfortranarray(rhs_unit)
-        # per-position chain data for the back-substitution
-        self.pos_top = self.chain_top[chain_of] if m else np.zeros(0, np.int64)
-        self.pos_beta_top = self.beta_top[chain_of] if m else np.zeros(0)
-        e_of_chain = np.zeros(len(heads), dtype=np.int64)
-        beta_e_of_chain = np.zeros(len(heads))
-        e_of_chain[self.e_chains] = self.chain_bottom
-        beta_e_of_chain[self.e_chains] = self.beta_bottom
-        self.pos_bottom = e_of_chain[chain_of] if m else np.zeros(0, np.int64)
-        self.pos_beta_bottom = beta_e_of_chain[chain_of] if m else np.zeros(0)
-        # the tree of branch points, ordered by its own depth
-        bnodes = np.nonzero(is_b)[0]
-        bparent = np.full(n, -1, dtype=np.int64)
-        direct = bnodes[1:][is_b[parent[bnodes[1:]]]]
-        bparent[direct] = parent[direct]
-        bparent[self.chain_bottom] = self.chain_top[self.e_chains]
-        bdepth = np.zeros(n, dtype=np.int64)
-        for i in bnodes[1:]:  # increasing index: B-parents come first
-            bdepth[i] = bdepth[bparent[i]] + 1
-        perm = bnodes[np.argsort(bdepth[bnodes], kind="stable")]
-        self.bnodes = perm
-        local = np.full(n, -1, dtype=np.int64)
-        local[perm] = np.arange(perm.size)
-        self.local = local
-        self.direct = direct
-        lparent = np.where(bparent[perm] >= 0, local[np.maximum(bparent[perm], 0)], -1)
-        counts = np.bincount(bdepth[perm])
-        bounds = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
-        self.btree = TreeMatrix(lparent, bounds)
-        self.b = b
-        # index sets and coefficient products of the Schur update, computed once
-        self._top = local[self.chain_top]
-        self._bottom = local[self.chain_bottom]
-        self._tail_e = pos_tail[self.e_chains]
-        self._head_e = pos_head[self.e_chains]
-        self._bt2 = self.beta_top * self.beta_top
-        self._be2 = self.beta_bottom * self.beta_bottom
-        self._bt_be = -self.beta_top[self.e_chains] * self.beta_bottom
-        self._direct_local = local[direct]
+        order, path_level, path_start = _heavy_paths(parent)
+        self.order = order
+        position = np.empty(n, dtype=np.int64)
+        position[order] = np.arange(n)
+        self.position = position
+        # coupling of position k to position k + 1: its parent on the same path, else 0
+        nxt = order[1:]
+        self.e = np.where(parent[order[:-1]] == nxt, b[order[:-1]], 0.0)
+        self.levels = []
+        bounds = np.searchsorted(path_level, np.arange(int(path_level[-1]) + 2))
+        for lev in range(int(path_level[-1]) + 1):
+            p0, p1 = int(bounds[lev]), int(bounds[lev + 1])
+            head = path_start[p0 + 1:p1 + 1] - 1
+            node = order[head]
+            attach = position[parent[node]] if lev else head[:0]
+            beta = b[node] if lev else np.zeros(0)
+            self.levels.append(_PathLevel(int(path_start[p0]), int(path_start[p1]), head, attach,
+                                          beta, beta * beta,
+                                          np.unique(attach).size == attach.size))
+        self._pivots = np.empty(n)           # D of L D L^T, path order
+        self._multipliers = np.empty(n - 1)  # L's subdiagonal, path order
+        self._r = np.empty(n)                # right-hand side, then solution, path order
+        self._z = np.empty(n)                # solutions of the upward sweep
         self._factored_d = None
 
-    def _factor_chains(self, d_interior: np.ndarray):
-        """``L D L^T`` factors of the chains' tridiagonal block (LAPACK ``dpttrf``)."""
-        m = d_interior.size
-        if m == 1:  # LAPACK's wrapper cannot take the empty off-diagonal of a 1×1 system
-            dd, ee, info = d_interior, self.e, (0 if d_interior[0] > 0 else 1)
-        else:
-            dd, ee, info = self._dpttrf(d_interior, self.e, overwrite_d=1)
-        if info != 0:
-            raise NumericalInstabilityError(
-                f"the chain system is not positive definite (LAPACK dpttrf info={info}); "
-                "the membrane or axial conductances are not physical", time_ms=float("nan"),
-                compartment=int(self.interior[min(abs(info), m) - 1]))
-        return dd, ee
-
-    def _solve_chains(self, rhs: np.ndarray) -> np.ndarray:
-        """``A_II⁻¹ rhs`` with the factors of the last :meth:`factor` (LAPACK ``dpttrs``)."""
-        dd, ee = self._chains
-        if dd.size == 1:
-            return rhs / dd[0]
-        return self._dpttrs(dd, ee, rhs)[0]
-
-    def factor(self, d: np.ndarray, b: np.ndarray) -> None:
-        """Factor the chains and the Schur complement for diagonal ``d``.
+    def factor(self, d: np.ndarray) -> None:
+        """Factor every path level and eliminate the heads for diagonal ``d``.
 
         Parameters
         ----------
         d : ndarray, shape (n,)
-            Diagonal.
-        b : ndarray, shape (n,)
-            Coupling of each compartment to its parent (``b[0]`` unused), the one
-            given at construction.
-        """
-        dS = d[self.bnodes]
-        offS = np.zeros(self.bnodes.size)
-        offS[self._direct_local] = b[self.direct]
-        if self.interior.size:
-            self._chains = self._factor_chains(d[self.interior])
-            u = self._solve_chains(self._unit)
-            self._u0, self._u1 = u[:, 0], u[:, 1]
-            np.subtract.at(dS, self._top, self._bt2 * self._u0[self.head_pos])
-            dS[self._bottom] -= self._be2 * self._u1[self._tail_e]
-            offS[self._bottom] = self._bt_be * self._u1[self._head_e]
-        self._offS = offS
-        self._btree_factors = self.btree.factor(dS, offS)
-        self._factored_d = d.copy()
+            Diagonal, µS (any consistent unit).
 
-    def solve(self, d: np.ndarray, b: np.ndarray, r: np.ndarray) -> np.ndarray:
+        Raises
+        ------
+        NumericalInstabilityError
+            If a path system is not positive definite.
+        """
+        piv, mult = self._pivots, self._multipliers
+        np.take(d, self.order, out=piv, mode="clip")  # clip: no buffering
+        np.copyto(mult, self.e)
+        for lev in reversed(self.levels):
+            s, e = lev.start, lev.stop
+            if e - s > 1:
+                info = self._dpttrf(piv[s:e], mult[s:e - 1], overwrite_d=1, overwrite_e=1)[2]
+            else:  # LAPACK's wrapper cannot take the empty off-diagonal of a 1×1 system
+                info = 0 if piv[s] > 0 else 1
+            if info != 0:
+                raise NumericalInstabilityError(
+                    f"a path of the tree system is not positive definite (LAPACK dpttrf "
+                    f"info={info}); the membrane or axial conductances are not physical",
+                    time_ms=float("nan"), compartment=int(self.order[s + min(abs(info), e - s) - 1]))
+            if lev.attach.size:
+                update = lev.beta2 / piv[lev.head]
+                if lev.distinct:
+                    piv[lev.attach] -= update
+                else:
+                    np.subtract.at(piv, lev.attach, update)
+        if self._factored_d is None:
+            self._factored_d = np.empty(self.n)
+        np.copyto(self._factored_d, d)
+
+    def _solve_level(self, lev: _PathLevel, rhs: np.ndarray) -> None:
+        """Overwrite ``rhs`` (a level's positions) with ``A_level⁻¹ rhs`` (LAPACK ``dpttrs``)."""
+        s, e = lev.start, lev.stop
+        if e - s > 1:
+            self._dpttrs(self._pivots[s:e], self._multipliers[s:e - 1], rhs, overwrite_b=1)
+        else:
+            rhs /= self._pivots[s]
+
+    def solve(self, d: np.ndarray, b: np.ndarray, r: np.ndarray,
+              out: np.ndarray | None = None) -> np.ndarray:
         """Solve ``A x = r``: arguments and result as in :meth:`TreeMatrix.solve`.
 
         ``b`` must be the coupling given at construction; the factorisation of
-        the last call is reused when ``d`` is unchanged.
+        the last call is reused when ``d`` is unchanged.  ``out``, if given, is
+        an array of shape (n,) that receives ``x`` (and is returned).
         """
-        if self._factored_d is None or not np.array_equal(d, self._factored_d):
-            self.factor(d, b)
-        rS = r[self.bnodes]
-        m = self.interior.size
-        if m:
-            z = self._solve_chains(r[self.interior])
-            np.subtract.at(rS, self._top, self.beta_top * z[self.head_pos])
-            rS[self._bottom] -= self.beta_bottom * z[self._tail_e]
-        y = self.btree.solve_factored(self._btree_factors, self._offS, rS)
-        x = np.empty(self.n)
-        x[self.bnodes] = y
-        if m:
-            x[self.interior] = (z - self.pos_beta_top * x[self.pos_top] * self._u0
-                                - self.pos_beta_bottom * x[self.pos_bottom] * self._u1)
-        return x
+        fd = self._factored_d
+        if fd is None or d[0] != fd[0] or not np.array_equal(d, fd):
+            self.factor(d)
+        rw, z = self._r, self._z
+        np.take(r, self.order, out=rw, mode="clip")
+        for lev in reversed(self.levels):  # eliminate each level's heads upwards
+            s, e = lev.start, lev.stop
+            if not lev.attach.size:
+                self._solve_level(lev, rw[s:e])
+                continue
+            zs = z[s:e]
+            np.copyto(zs, rw[s:e])
+            self._solve_level(lev, zs)
+            update = lev.beta * z[lev.head]
+            if lev.distinct:
+                rw[lev.attach] -= update
+            else:
+                np.subtract.at(rw, lev.attach, update)
+        for lev in self.levels[1:]:  # back-substitution downwards
+            rw[lev.head] -= lev.beta * rw[lev.attach]
+            self._solve_level(lev, rw[lev.start:lev.stop])
+        if out is None:
+            out = np.empty(self.n)
+        return np.take(rw, self.position, out=out, mode="clip")
+
+
+#: Most compartments whose gates are updated by one round of vector operations: the
+#: temporaries of a rate function then stay small (80 kB) and hot in cache and are
+#: recycled by the allocator, instead of each being a fresh memory mapping.
+GATE_CHUNK = 10240
 
 
 def _block_selector(index: np.ndarray):
@@ -325,6 +356,29 @@ def _block_selector(index: np.ndarray):
     if index.size and index[-1] - index[0] + 1 == index.size and np.all(np.diff(index) == 1):
         return slice(int(index[0]), int(index[-1]) + 1)
     return index
+
+
+class _GateChunk(NamedTuple):
+    """Up to :data:`GATE_CHUNK` entries of one channel block, updated together."""
+
+    entries: slice       # the entries of the block (columns of its gate states)
+    where: object        # their compartments: a slice where contiguous, else an index
+    p: tuple             # rate-function parameters of these entries
+    gmax_uS: np.ndarray
+    reversal_mV: np.ndarray
+
+
+def _gate_chunks(block) -> list[_GateChunk]:
+    """Split a channel block into runs of at most :data:`GATE_CHUNK` entries."""
+    k = block.index.size
+    n_chunks = max(1, -(-k // GATE_CHUNK))
+    edges = [k * c // n_chunks for c in range(n_chunks + 1)]
+    chunks = []
+    for lo, hi in zip(edges[:-1], edges[1:]):
+        chunks.append(_GateChunk(slice(lo, hi), _block_selector(block.index[lo:hi]),
+                                 block.channel.parameter_tuple(*block.parameters[:, lo:hi]),
+                                 block.gmax_uS[lo:hi], block.reversal_mV[lo:hi]))
+    return chunks
 
 
 class ReferenceStepper:
@@ -340,12 +394,12 @@ class ReferenceStepper:
         grid = cell.grid
         g = cell.axial_conductance_uS
         self.offdiag = -g
-        self.tree = BranchSchurSolver(grid.parent, self.offdiag)
+        self.tree = HeavyPathSolver(grid.parent, self.offdiag)
         self.axial_diag = cell.axial_diagonal_uS
         self.leak_current_nA = cell.leak_uS * cell.leak_reversal_mV
         self.blocks = []
         for block in cell.channels:
-            self.blocks.append((block, _block_selector(block.index), block.parameter_tuple(),
+            self.blocks.append((block, _gate_chunks(block),
                                 block.channel.temperature_factor(cell.celsius)))
         self.synapse_groups = []
         for grp in cell.synapses:
@@ -362,10 +416,11 @@ class ReferenceStepper:
         n = cell.n_compartments
         # work arrays reused every step (the tree solver copies what it keeps)
         self._G, self._J, self._d, self._r, self._abs_v = (np.empty(n) for _ in range(5))
+        self._v_buffers = (np.empty(n), np.empty(n))  # new potentials, never the current ones
         self._c_over_h = {}
         self._table_cache = {}
         self._tables = (None,) * len(self.blocks)
-        self._g = [np.empty(block.index.size) for block in cell.channels]
+        self._g = np.empty(min(n, GATE_CHUNK))  # a chunk's channel conductance
 
     # -- pieces of one step ---------------------------------------------------
     def _advance_gates(self, v, gates, dt_gate, G, J):
@@ -374,36 +429,47 @@ class ReferenceStepper:
         Rate gates use ``exp(-dt phi (alpha + beta))`` and the open fraction is a
         product of repeated multiplications, the arithmetic of the compiled kernel.
         A block with a rate table (:mod:`cabletree.solver.tables`) takes its
-        steady states and rates from it instead of its rate functions.
+        steady states and rates from it instead of its rate functions.  Blocks
+        are updated in chunks of at most :data:`GATE_CHUNK` entries.
         """
         celsius = self.cell.celsius
-        for (block, where, p, phi), x, g, table in zip(self.blocks, gates, self._g, self._tables):
-            vb = v[where]
-            np.copyto(g, block.gmax_uS)
-            if table is not None:
-                inf_all, rate_all = interpolate(table, vb)
-            for j, gate in enumerate(block.channel.gates):
-                dt_eff = dt_gate * (phi if gate.temperature_scaled else 1.0)
+        for (block, chunks, phi), x, table in zip(self.blocks, gates, self._tables):
+            for chunk in chunks:
+                vb = v[chunk.where]
+                g = self._g[:vb.size]
                 if table is not None:
-                    inf = inf_all[j]
-                    e = np.exp(np.multiply(rate_all[j], -dt_eff, out=rate_all[j]))
-                elif gate.uses_rates:
-                    a = gate.alpha(vb, celsius, p)
-                    s = a + gate.beta(vb, celsius, p)
-                    inf = a / s
-                    e = np.exp(np.multiply(s, -dt_eff, out=s), out=s)
-                else:  # tau may be a constant: no in-place update of it
-                    inf = gate.steady_state(vb, celsius, p)
-                    e = np.exp(-dt_eff / gate.tau_ms(vb, celsius, p))
-                xj = x[j]
-                xj -= inf
-                xj *= e
-                xj += inf
-                for _ in range(int(gate.power)):
-                    g *= xj
-            G[where] += g
-            g *= block.reversal_mV
-            J[where] += g
+                    inf_all, rate_all = interpolate(table, vb)
+                started = False
+                for j, gate in enumerate(block.channel.gates):
+                    dt_eff = dt_gate * (phi if gate.temperature_scaled else 1.0)
+                    if table is not None:
+                        inf = inf_all[j]
+                        e = np.exp(np.multiply(rate_all[j], -dt_eff, out=rate_all[j]),
+                                   out=rate_all[j])
+                    elif gate.uses_rates:
+                        a = gate.alpha(vb, celsius, chunk.p)
+                        s = a + gate.beta(vb, celsius, chunk.p)
+                        inf = a / s
+                        e = np.exp(np.multiply(s, -dt_eff, out=s), out=s)
+                    else:  # tau may be a constant: no in-place update of it
+                        inf = gate.steady_state(vb, celsius, chunk.p)
+                        e = np.divide(-dt_eff, gate.tau_ms(vb, celsius, chunk.p))
+                        e = np.exp(e, out=e) if isinstance(e, np.ndarray) else np.exp(e)
+                    xj = x[j, chunk.entries]
+                    xj -= inf
+                    xj *= e
+                    xj += inf
+                    for _ in range(int(gate.power)):
+                        if started:
+                            g *= xj
+                        else:
+                            np.multiply(chunk.gmax_uS, xj, out=g)
+                            started = True
+                if not started:  # no gate enters the conductance
+                    np.copyto(g, chunk.gmax_uS)
+                G[chunk.where] += g
+                g *= chunk.reversal_mV
+                J[chunk.where] += g
         return gates
 
     def _advance_synapses(self, states, h, step, first_half, second_half):
@@ -455,7 +521,8 @@ class ReferenceStepper:
         r = np.multiply(c, v, out=self._r)
         r += J
         self.n_solves += 1
-        return self.tree.solve(d, self.offdiag, r)
+        out = self._v_buffers[1] if v is self._v_buffers[0] else self._v_buffers[0]
+        return self.tree.solve(d, self.offdiag, r, out=out)
 
     def _step(self, t, v, gates, lag, syn, h, mode, current, step, halves):
         """One backward-Euler (mode 'be') or staggered CN ('cn') step of size h."""
@@ -560,6 +627,6 @@ class ReferenceStepper:
                 records[rec] = v[record_index]
                 rec += 1
             self.n_steps_done += 1
-        final = SolverState(t, v, tuple(gates), lag, tuple(syn),
+        final = SolverState(t, v.copy(), tuple(gates), lag, tuple(syn),
                             tuple(b.channel.name for b in self.cell.channels))
         return records[:rec], final
