@@ -397,3 +397,70 @@ def test_many_strips_agree_with_reference(monkeypatch, threads, table_step_mV):
     _agree(ref[0], got[0])
     for a, b in zip(ref[1].gates, got[1].gates):
         _agree(a, b)
+
+
+def test_split_order_separates_the_tree_into_balanced_parts():
+    # reference: block elimination of a bordered block-diagonal matrix (Golub & Van
+    # Loan, Matrix Computations, 4th ed. 2013, §3.2.11): the parts must not touch
+    # each other, only the top, and the top must come first, parents first
+    from cabletree.solver.compiled import _work, split_order
+    cell = build_cell(synthetic.random_tree(200, seed=7, samples_per_branch=4),
+                      channels=[ChannelPlacement(hh_sodium, 0.12)])
+    parent = cell.grid.parent
+    work = _work(cell.n_compartments, [(b.channel, b.index) for b in cell.channels])
+    order, bounds, tops = split_order(parent, [b.index for b in cell.channels], 2, work)
+    n = cell.n_compartments
+    assert sorted(order.tolist()) == list(range(n)) and order[0] == 0
+    position = np.empty(n, dtype=np.int64)
+    position[order] = np.arange(n)
+    kparent = position[parent[order][1:]]
+    assert np.all(kparent < np.arange(1, n))  # parents first
+    m = bounds[0]
+    part = np.searchsorted(bounds, np.arange(n), side="right") - 1  # -1: the top
+    for i in range(m, n):  # a compartment's parent is in its part or in the top
+        p = kparent[i - 1]
+        assert p < m or part[p] == part[i]
+        if p < m:
+            assert order[i] in tops
+    loads = [work[order[bounds[t]:bounds[t + 1]]].sum() for t in range(2)]
+    assert max(loads) <= 1.2 * sum(loads) / 2
+    # a chain has one subtree below any top small enough: no split
+    chain = np.arange(-1, 99)
+    assert split_order(chain, [], 2, np.ones(100)) is None
+
+
+def test_two_threads_split_tree_agrees_with_reference_including_synapses():
+    # reference: the numpy backend; the split tree solve (a part per thread, the
+    # top solved serially) with channels, synapses and current injections
+    from cabletree.solver.compiled import CompiledStepper
+    from cabletree.solver.plan import make_schedule
+    from cabletree.solver.reference import ReferenceStepper
+    base = build_cell(synthetic.random_tree(40, seed=2, samples_per_branch=3),
+                      membrane=Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-54.387),
+                      channels=[ChannelPlacement(hh_sodium, 0.12),
+                                ChannelPlacement(hh_potassium, 0.036)])
+    far = int(np.argmax(base.grid.path_distance_um))
+    syn = SynapseGroup.from_synapses(AMPA, [Site("far", far)], [2.0],
+                                     [explicit_events([1.0, 3.0])])
+    cell = base.with_inputs(recording_sites=all_compartment_sites(base.grid), synapses=[syn],
+                            injections=[CurrentInjection(soma_site(base.grid),
+                                                         StepCurrent(0.4, 0.5, 5.0))])
+    two = CompiledStepper(cell, threads=2)
+    assert two.n_parts == 2
+    for method in ("crank_nicolson", "backward_euler"):
+        settings = RunSettings(6.0, 0.025, method=method)
+        idx = np.arange(cell.n_compartments)
+        state = resting_state(cell, -65.0)
+        ref = ReferenceStepper(cell).run(settings, make_schedule(cell, settings), state, idx)
+        got = two.run(settings, make_schedule(cell, settings), state, idx)
+        assert ref[0].max() > 0.0
+        _agree(ref[0], got[0])
+    # a passive cell takes the factor-once path on the split tree too
+    passive = _passive_cell(injections=[CurrentInjection(Site("s", 0), StepCurrent(0.1, 1.0, 3.0))])
+    p2 = CompiledStepper(passive, threads=2)
+    settings = RunSettings(5.0, 0.025)
+    idx = np.arange(passive.n_compartments)
+    ref = ReferenceStepper(passive).run(settings, make_schedule(passive, settings),
+                                        resting_state(passive, -65.0), idx)
+    got = p2.run(settings, make_schedule(passive, settings), resting_state(passive, -65.0), idx)
+    _agree(ref[0], got[0])
