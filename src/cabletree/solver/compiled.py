@@ -470,112 +470,33 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
 
 
 _KERNEL_TEMPLATE = '''
-@numba.njit(**_JIT)
-def gate_strips(t, v, dt_gate, G, J, ws, wi, tp, celsius{block_params}):
-    # thread t updates strips tp[t] <= s < tp[t + 1], each a short range of
-    # compartments in every block (sp<b>[s]:sp<b>[s + 1] are the block entries in
-    # strip s), with its own scratch rows ws[t], wi[t]
-    w0 = ws[t, 0]
-    w1 = ws[t, 1]
-    wf = ws[t, 2]
-    vg = ws[t, 3]
-    gg = ws[t, 4]
-    wit = wi[t]
-    for s in range(tp[t], tp[t + 1]):
+@numba.njit(**_JIT_PAR)
+def gates_and_currents(v, dt_gate, G, J, ws, wi, tp, celsius{block_params}):
+    # one parallel region per call: thread t updates strips tp[t] <= s < tp[t + 1],
+    # each a short range of compartments in every block (sp<b>[s]:sp<b>[s + 1] are
+    # the block entries in strip s), with its own scratch rows ws[t], wi[t]
+    for t in numba.prange(N_CHUNKS):
+        w0 = ws[t, 0]
+        w1 = ws[t, 1]
+        wf = ws[t, 2]
+        vg = ws[t, 3]
+        gg = ws[t, 4]
+        wit = wi[t]
+        for s in range(tp[t], tp[t + 1]):
 {block_calls}
     return 0
 
 
 @numba.njit(**_JIT)
-def assemble(lo, hi, v, rheff, fixed, cap, leak_g, leak_j, axial_diag, G, J, d, r):
-    # rows lo <= i < hi of the tree system; G and J go back to the leak.  fixed:
-    # the matrix is the one last factored, only the right-hand side is new
-    if fixed:
-        for i in range(lo, hi):
-            r[i] = cap[i] * rheff * v[i] + J[i]
-    else:
-        for i in range(lo, hi):
-            c = cap[i] * rheff
-            d[i] = c + G[i] + axial_diag[i]
-            r[i] = c * v[i] + J[i]
-            G[i] = leak_g[i]
-            J[i] = leak_j[i]
-    return 0
-
-
-@numba.njit(**_JIT)
-def eliminate(lo, hi, fixed, offdiag, eparent, d, r):
-    # elimination of lo <= i < hi (lo >= 1) from the last; eparent[i] is the
-    # parent, or the slot (>= n) that collects what a subtree of a split tree
-    # gives the top.  fixed: only the right-hand side, with the stored reciprocal
-    # pivots (offdiag[i] * d[i] is the multiplier the factorisation used)
-    if fixed:
-        for i in range(hi - 1, lo - 1, -1):
-            r[eparent[i]] -= (offdiag[i] * d[i]) * r[i]
-    else:
-        # d[i] is final when i is reached, so its reciprocal replaces it and the
-        # back-substitution multiplies instead of dividing again
-        for i in range(hi - 1, lo - 1, -1):
-            p = eparent[i]
-            rd = 1.0 / d[i]
-            d[i] = rd
-            f = offdiag[i] * rd
-            d[p] -= f * offdiag[i]
-            r[p] -= f * r[i]
-    return 0
-
-
-@numba.njit(**_JIT)
-def back_substitute(lo, hi, v, cn, offdiag, parent, d, r, limit):
-    # from lo to hi - 1 (parents first), with the new potential (Crank-Nicolson:
-    # extrapolated from the half step); r[i] is spent once v_out(i) is known and
-    # holds v_out from then on.  Returns the count of NaN or runaway values.
-    n_bad = 0
-    for i in range(lo, hi):
-        vo = (r[i] - offdiag[i] * r[parent[i]]) * d[i]
-        r[i] = vo
-        vn = 2.0 * vo - v[i] if cn else vo
-        v[i] = vn
-        n_bad += 0 if abs(vn) <= limit else 1  # NaN counts as bad
-    return n_bad
-
-
-@numba.njit(**_JIT_PAR)
-def forward(v, dt_gate, rheff, fixed, n_parts, part_bounds, cap, leak_g, leak_j, axial_diag,
-            offdiag, eparent, G, J, d, r, ws, wi, tp, celsius{block_params}):
-    # one parallel region: thread t updates the gates of its compartments and,
-    # when the tree is split into parts (one per thread), assembles and
-    # eliminates its part, whose compartments are exactly its own (thread 0 also
-    # assembles the top of the tree, positions below part_bounds[0])
-    for t in numba.prange(N_CHUNKS):
-        gate_strips(t, v, dt_gate, G, J, ws, wi, tp, celsius{block_args})
-        if n_parts > 1:
-            alo = 0 if t == 0 else part_bounds[t]
-            assemble(alo, part_bounds[t + 1], v, rheff, fixed, cap, leak_g, leak_j, axial_diag,
-                     G, J, d, r)
-            eliminate(part_bounds[t], part_bounds[t + 1], fixed, offdiag, eparent, d, r)
-    return 0
-
-
-@numba.njit(**_JIT_PAR)
-def backward(v, cn, n_parts, part_bounds, offdiag, parent, d, r, limit, n_bad):
-    for t in numba.prange(N_CHUNKS):
-        if t < n_parts:
-            n_bad[t] = back_substitute(part_bounds[t], part_bounds[t + 1], v, cn, offdiag,
-                                       parent, d, r, limit)
-    return 0
-
-
-@numba.njit(**_JIT)
 def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
-            cap, leak_g, leak_j, axial_diag, offdiag, parent, eparent, n_parts, part_bounds,
-            slot_target, n_bad_t, G, J, d, r, limit, fixed_matrix, factor_rheff,
+            cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r, limit,
+            fixed_matrix, factor_rheff,
             inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
             sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
             ws, wi, tp, celsius{block_params}):
     n = v.size
-    # G and J hold the leak on entry (reset to it by the assembly); synapses and
-    # injections first, so that the parallel region below finds them in place
+    # G and J hold the leak on entry (set by the caller, then reset below)
+    gates_and_currents(v, dt_gate, G, J, ws, wi, tp, celsius{block_args})
     ns = sa.size
     if ns > 0:
         for s in range(ns):
@@ -626,51 +547,53 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
     for q in range(inj_comp.size):
         J[inj_comp[q]] += inj_row[q]
     rheff = 2.0 / h if cn else 1.0 / h
-    fixed = fixed_matrix and rheff == factor_rheff[0]
-    if n_parts > 1:
-        for k in range(slot_target.size):
-            d[n + k] = 0.0
-            r[n + k] = 0.0
-    forward(v, dt_gate, rheff, fixed, n_parts, part_bounds, cap, leak_g, leak_j, axial_diag,
-            offdiag, eparent, G, J, d, r, ws, wi, tp, celsius{block_args})
-    if n_parts == 1:
-        assemble(0, n, v, rheff, fixed, cap, leak_g, leak_j, axial_diag, G, J, d, r)
-        eliminate(1, n, fixed, offdiag, eparent, d, r)
-    else:
-        # what each subtree gave its top compartment's parent (collected in the
-        # subtree's slot n + k), then the top of the tree, serially
-        m = part_bounds[0]
-        for k in range(slot_target.size):
-            if not fixed:
-                d[slot_target[k]] += d[n + k]
-            r[slot_target[k]] += r[n + k]
-        eliminate(1, m, fixed, offdiag, eparent, d, r)
-    if fixed:
+    if fixed_matrix and rheff == factor_rheff[0]:
+        # the matrix is the same as at the last factorisation: eliminate the
+        # right-hand side only, with the stored reciprocal pivots (the multiplier
+        # offdiag[i] * d[i] is the product the factorisation used)
+        for i in range(n):
+            r[i] = cap[i] * rheff * v[i] + J[i]
         for q in range(inj_comp.size):  # only these entries of J left the leak
             J[inj_comp[q]] = leak_j[inj_comp[q]]
+        for i in range(n - 1, 0, -1):
+            r[parent[i]] -= (offdiag[i] * d[i]) * r[i]
     else:
+        for i in range(n):
+            c = cap[i] * rheff
+            d[i] = c + G[i] + axial_diag[i]
+            r[i] = c * v[i] + J[i]
+            G[i] = leak_g[i]
+            J[i] = leak_j[i]
+        # elimination; d[i] is final when i is reached, so its reciprocal replaces
+        # it and the back-substitution multiplies instead of dividing again
+        for i in range(n - 1, 0, -1):
+            p = parent[i]
+            rd = 1.0 / d[i]
+            d[i] = rd
+            f = offdiag[i] * rd
+            d[p] -= f * offdiag[i]
+            r[p] -= f * r[i]
         d[0] = 1.0 / d[0]
         factor_rheff[0] = rheff
-    # back-substitution from the root
+    # back-substitution from the root, with the new potential (Crank-Nicolson:
+    # extrapolated from the half step) and the count of NaN or runaway values
     vo = r[0] * d[0]
-    r[0] = vo
+    r[0] = vo  # r[i] is spent once v_out(i) is known: it holds v_out from here on
     vn = 2.0 * vo - v[0] if cn else vo
     v[0] = vn
     n_bad = 0 if abs(vn) <= limit else 1  # NaN counts as bad
-    if n_parts == 1:
-        n_bad += back_substitute(1, n, v, cn, offdiag, parent, d, r, limit)
-    else:
-        n_bad += back_substitute(1, part_bounds[0], v, cn, offdiag, parent, d, r, limit)
-        backward(v, cn, n_parts, part_bounds, offdiag, parent, d, r, limit, n_bad_t)
-        for t in range(n_parts):
-            n_bad += n_bad_t[t]
+    for i in range(1, n):
+        vo = (r[i] - offdiag[i] * r[parent[i]]) * d[i]
+        r[i] = vo
+        vn = 2.0 * vo - v[i] if cn else vo
+        v[i] = vn
+        n_bad += 0 if abs(vn) <= limit else 1
     return n_bad
 
 
 @numba.njit(**_JIT_CACHE)
 def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matrix,
-        cap, leak_g, leak_j, axial_diag, offdiag, parent, eparent, n_parts, part_bounds,
-        slot_target, v, records, record_index,
+        cap, leak_g, leak_j, axial_diag, offdiag, parent, v, records, record_index,
         inj_comp, inj_mid, inj_end,
         syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight, sa, sb,
         ea_full, eb_full, ea_half, eb_half, ev_ptr, ev_syn, ev_off, ev_first,
@@ -678,11 +601,8 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
     n = v.size
     G = leak_g.copy()
     J = leak_j.copy()
-    # pivots and right-hand side, with one slot per subtree of a split tree beyond
-    # n that collects what the subtree gives the top of the tree
-    d = np.empty(n + slot_target.size)
-    r = np.empty(n + slot_target.size)
-    n_bad_t = np.zeros(N_CHUNKS, dtype=np.int64)
+    d = np.empty(n)
+    r = np.empty(n)
     # scratch of the gate loops, rows of one strip per thread (indexed by entry
     # within the strip): steady states, exponents, table fractions, gathered
     # potentials and conductances of non-contiguous blocks; table grid cells
@@ -726,9 +646,8 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
             ea = ea_full if h == dt else ea_half
             eb = eb_full if h == dt else eb_half
             n_bad = substep(v, h, cn, dt_gate, inj_row, first_half, second_half, k, dt,
-                    cap, leak_g, leak_j, axial_diag, offdiag, parent, eparent, n_parts,
-                    part_bounds, slot_target, n_bad_t, G, J, d, r, limit, fixed_matrix,
-                    factor_rheff,
+                    cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r,
+                    limit, fixed_matrix, factor_rheff,
                     inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                     sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
                     ws, wi, tp, celsius{block_args})
@@ -755,12 +674,12 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple) -> str:
         rng = f"sp{b}[s], sp{b}[s + 1]"
         if c:
             view = f"idx{b}[0]:idx{b}[0] + gm{b}.size"
-            calls.append(f"        if sp{b}[s] < sp{b}[s + 1]:\n"
-                         f"            block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, "
+            calls.append(f"            if sp{b}[s] < sp{b}[s + 1]:\n"
+                         f"                block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, "
                          f"gm{b}, er{b}, celsius, phi{b}, dt_gate, G[{view}], J[{view}], w0, w1, "
                          f"wf, wit, vg, gg, tb{b}, tv{b})\n")
         else:
-            calls.append(f"        block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
+            calls.append(f"            block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
                          f"celsius, phi{b}, dt_gate, G, J, w0, w1, wf, wit, vg, gg, tb{b}, "
                          f"tv{b})\n")
     calls = "".join(calls)
@@ -769,7 +688,7 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple) -> str:
     blocks = "\n".join(_block_source(b, ch, c, tab)
                         for b, (ch, c, tab) in enumerate(zip(channels, contiguous, tabulated)))
     return (head + blocks + _KERNEL_TEMPLATE.format(block_params=params, block_args=params,
-                                                    block_calls=calls or "        pass\n"))
+                                                    block_calls=calls or "            pass\n"))
 
 
 _KERNELS: dict = {}
@@ -953,18 +872,12 @@ def kernel_order(parent: np.ndarray, block_indices) -> np.ndarray:
 STRIP_COMPARTMENTS = 4096
 
 
-def _strip_bounds(ranges: np.ndarray, strip: int):
+def _strip_bounds(n: int, blocks, n_threads: int, strip: int):
     """Strips of the gate loops: boundaries, and the strips of each thread.
 
-    Each thread's range of compartments is split into strips of at most
-    ``strip`` compartments.
-
-    Parameters
-    ----------
-    ranges : ndarray of int64, shape (n_threads + 1,)
-        Thread ``t`` owns kernel positions ``ranges[t] <= i < ranges[t + 1]``.
-    strip : int
-        Largest strip, compartments.
+    The compartments are split into ``n_threads`` ranges of about equal gate work
+    (:func:`_chunk_bounds`), and each range into strips of at most ``strip``
+    compartments.
 
     Returns
     -------
@@ -974,6 +887,7 @@ def _strip_bounds(ranges: np.ndarray, strip: int):
     thread_strips : ndarray of int64, shape (n_threads + 1,)
         Thread ``t`` updates strips ``thread_strips[t] <= s < thread_strips[t + 1]``.
     """
+    ranges = _chunk_bounds(n, blocks, n_threads)
     bounds = [0]
     thread_strips = [0]
     for a, b in zip(ranges[:-1], ranges[1:]):
@@ -983,116 +897,20 @@ def _strip_bounds(ranges: np.ndarray, strip: int):
     return np.asarray(bounds, dtype=np.int64), np.asarray(thread_strips, dtype=np.int64)
 
 
-def _work(n: int, blocks) -> np.ndarray:
-    """Relative cost of each compartment in a step: 1 for the tree solve plus, per
-    channel block it carries (``blocks``: (channel, compartments) pairs), one per
-    gate and one for the conductance."""
+def _chunk_bounds(n: int, blocks, n_chunks: int) -> np.ndarray:
+    """Compartment boundaries splitting the gate work into ``n_chunks`` ranges.
+
+    ``blocks`` holds (channel, kernel positions) of every channel block.  Each
+    compartment is weighted by the number of gates (plus one per channel for the
+    conductance) it carries, and the ranges hold about equal total weight.
+    Returns ``n_chunks + 1`` increasing kernel positions from 0 to N.
+    """
     work = np.ones(n)
-    for channel, compartments in blocks:
-        work[compartments] += len(channel.gates) + 1
-    return work
-
-
-def _chunk_bounds(work: np.ndarray, n_chunks: int) -> np.ndarray:
-    """Boundaries splitting compartments ``0..n-1`` into ``n_chunks`` ranges of about
-    equal total ``work``: ``n_chunks + 1`` increasing positions from 0 to ``n``."""
+    for channel, positions in blocks:
+        work[positions] += len(channel.gates) + 1
     cum = np.cumsum(work)
     inner = np.searchsorted(cum, cum[-1] * np.arange(1, n_chunks) / n_chunks)
-    return np.concatenate([[0], inner, [work.size]]).astype(np.int64)
-
-
-#: Largest share of the step's work one part of a split tree may carry, relative to
-#: an even share: beyond it the tree solve stays serial (see :func:`split_order`).
-SPLIT_IMBALANCE_LIMIT = 1.2
-
-
-def split_order(parent: np.ndarray, block_indices, n_parts: int, work: np.ndarray):
-    """A kernel order that splits the tree into a small top and ``n_parts`` parts.
-
-    The top starts as the root (compartment 0); while the subtrees hanging from
-    it cannot be dealt into ``n_parts`` parts of about equal ``work`` (greedy
-    number partitioning, heaviest first, to the lightest part), the heaviest
-    hanging subtree's first compartment joins the top.  The order is the top
-    (grid order), then each part in turn, ordered inside by :func:`kernel_order`.
-    The tree system then separates: each part is eliminated independently up to
-    the top, the top is eliminated and solved, and each part is back-substituted
-    independently (block elimination of a bordered block-diagonal matrix; Golub
-    & Van Loan, Matrix Computations, 4th ed. 2013, §3.2.11), so a thread per part
-    solves the tree.
-
-    Parameters
-    ----------
-    parent : ndarray of int64, shape (n,)
-        Parent of each compartment in grid order, -1 for the root; ``parent[i] < i``.
-    block_indices : sequence of ndarray of int64
-        Compartments of each channel block (grid order, increasing).
-    n_parts : int
-        Number of parts (threads), >= 2.
-    work : ndarray, shape (n,)
-        Relative cost of each compartment in a step (grid order).
-
-    Returns
-    -------
-    (order, part_bounds, tops) or None
-        ``order[i]`` is the grid compartment at kernel position ``i``; the top
-        holds positions below ``part_bounds[0]`` and part ``t`` positions
-        ``part_bounds[t] <= i < part_bounds[t + 1]``; ``tops`` are the grid
-        compartments whose subtrees make up the parts (their parents are in the
-        top).  None if no top of at most ``max(1, n // 50)`` compartments leaves
-        parts within :data:`SPLIT_IMBALANCE_LIMIT` times an even share of the work.
-    """
-    n = parent.size
-    subtree_work = np.asarray(work, dtype=float).copy()
-    for i in range(n - 1, 0, -1):
-        subtree_work[parent[i]] += subtree_work[i]
-    by_parent = np.argsort(parent[1:], kind="stable") + 1
-    first_child = np.searchsorted(parent[by_parent], np.arange(n + 1))
-    in_top = np.zeros(n, dtype=bool)
-    in_top[0] = True
-    hanging = list(by_parent[first_child[0]:first_child[1]])
-    limit = max(1, n // 50)
-    while True:
-        if len(hanging) >= n_parts:
-            weights = subtree_work[hanging]
-            load = np.zeros(n_parts)
-            part_of = np.empty(len(hanging), dtype=np.int64)
-            for j in np.argsort(-weights, kind="stable"):
-                t = int(np.argmin(load))
-                part_of[j] = t
-                load[t] += weights[j]
-            if load.max() <= SPLIT_IMBALANCE_LIMIT * load.sum() / n_parts:
-                break
-        if not hanging or int(in_top.sum()) >= limit:
-            return None
-        heaviest = max(hanging, key=lambda c: subtree_work[c])
-        hanging.remove(heaviest)
-        in_top[heaviest] = True
-        hanging += list(by_parent[first_child[heaviest]:first_child[heaviest + 1]])
-    tops = np.asarray(hanging, dtype=np.int64)
-    part = np.full(n, -1, dtype=np.int64)
-    part[tops] = part_of
-    for i in range(1, n):
-        if part[i] < 0 and not in_top[i]:
-            part[i] = part[parent[i]]
-    top = np.flatnonzero(in_top)
-    order = [top]
-    bounds = [top.size]
-    for t in range(n_parts):
-        members = np.flatnonzero(part == t)  # grid order: parents first
-        local = np.full(n, -1, dtype=np.int64)
-        local[top] = 0  # the whole top stands for the root of the part's own tree
-        local[members] = np.arange(1, members.size + 1)
-        local_parent = np.concatenate([[-1], local[parent[members]]])
-        local_blocks = [local[idx][local[idx] >= 1] for idx in block_indices]
-        inner = kernel_order(local_parent, local_blocks)
-        order.append(members[inner[1:] - 1])
-        bounds.append(bounds[-1] + members.size)
-    order_arr = np.concatenate(order).astype(np.int64)
-    # the kernel order keeps subtree tops sorted by their position
-    position = np.empty(n, dtype=np.int64)
-    position[order_arr] = np.arange(n)
-    tops = tops[np.argsort(position[tops])]
-    return order_arr, np.asarray(bounds, dtype=np.int64), tops
+    return np.concatenate([[0], inner, [n]]).astype(np.int64)
 
 
 class CompiledStepper:
@@ -1121,21 +939,8 @@ class CompiledStepper:
         # the kernel numbers compartments its own way (kernel_order): every
         # per-compartment array below is in that order, and run() maps states,
         # inputs and records between it and the grid's order
-        grid_parent = np.asarray(grid.parent, dtype=np.int64)
-        block_indices = [np.asarray(b.index, dtype=np.int64) for b in cell.channels]
-        work = _work(n, [(b.channel, b.index) for b in cell.channels])
-        # with threads, the tree is split below the root into a part per thread
-        # (split_order) where that balances; otherwise the solve stays serial
-        split = split_order(grid_parent, block_indices, self.threads, work) \
-            if self.threads > 1 else None
-        tops = np.zeros(0, dtype=np.int64)
-        if split is None:
-            self.order = kernel_order(grid_parent, block_indices)
-            self.n_parts = 1
-            self.part_bounds = np.array([1, n], dtype=np.int64)
-        else:
-            self.order, self.part_bounds, tops = split
-            self.n_parts = self.threads
+        self.order = kernel_order(np.asarray(grid.parent, dtype=np.int64),
+                                  [b.index for b in cell.channels])
         self.position = np.empty(n, dtype=np.int64)
         self.position[self.order] = np.arange(n)
         order = self.order
@@ -1144,12 +949,7 @@ class CompiledStepper:
         self.axial_diag = np.ascontiguousarray(cell.axial_diagonal_uS[order])
         parent = np.asarray(grid.parent, dtype=np.int64)[order]
         parent[1:] = self.position[parent[1:]]
-        self.parent = np.ascontiguousarray(parent, dtype=np.int32)  # less memory traffic than int64
-        # the elimination sends what each subtree of a part gives the top of the
-        # tree to the subtree's own slot n + k, added to slot_target[k] afterwards
-        self.elimination_parent = self.parent.copy()
-        self.slot_target = np.ascontiguousarray(self.parent[self.position[tops]])
-        self.elimination_parent[self.position[tops]] = n + np.arange(tops.size)
+        self.parent = np.ascontiguousarray(parent)
         self.leak_g = np.ascontiguousarray(cell.leak_uS[order], dtype=float)
         self.leak_j = self.leak_g * cell.leak_reversal_mV[order]
         self.cap = np.ascontiguousarray(cell.capacitance_nF[order], dtype=float)
@@ -1163,11 +963,8 @@ class CompiledStepper:
             e = np.argsort(pos, kind="stable")
             self.entry_order.append(e)
             positions.append(np.ascontiguousarray(pos[e]))
-        if self.n_parts > 1:  # each thread updates the gates of its own part
-            ranges = np.concatenate([[0], self.part_bounds[1:]]).astype(np.int64)
-        else:
-            ranges = _chunk_bounds(_work(n, zip(self.channels, positions)), self.threads)
-        bounds, self.thread_strips = _strip_bounds(ranges, STRIP_COMPARTMENTS)
+        bounds, self.thread_strips = _strip_bounds(n, list(zip(self.channels, positions)),
+                                                   self.threads, STRIP_COMPARTMENTS)
         self.max_strip = int(max(1, np.max(np.diff(bounds))))
         self.block_static = []
         for block, idx, e in zip(cell.channels, positions, self.entry_order):
@@ -1252,7 +1049,6 @@ class CompiledStepper:
                 float(settings.max_abs_v_mV), int(sched.record_every), float(state.gate_lag_ms),
                 self.fixed_matrix,
                 self.cap, self.leak_g, self.leak_j, self.axial_diag, self.offdiag, self.parent,
-                self.elimination_parent, self.n_parts, self.part_bounds, self.slot_target,
                 v, records, rec_idx,
                 np.ascontiguousarray(pos[np.asarray(sched.injection_compartment, dtype=np.int64)]),
                 inj_mid, inj_end,
