@@ -189,6 +189,50 @@ def test_user_defined_channel_runs_compiled():
     _agree(ref.final_state.gates[2], comp.final_state.gates[2])
 
 
+# A user channel whose gate gives steady state and time constant in one function
+# (rule 6 of cabletree.channels.base), with a helper, a closure constant and a
+# profiled parameter; steady_state and tau_ms are defined from it.
+def _make_combined_channel(tau_peak_ms):
+    def y_inf_tau(v, celsius, p):
+        x = (v - p.v_half_mV) / -7.0
+        e = np.exp(x)
+        return 1.0 / (1.0 + e), 0.5 + tau_peak_ms * np.sqrt(e) / (1.0 + e)
+
+    def y_inf(v, celsius, p):
+        return y_inf_tau(v, celsius, p)[0]
+
+    def y_tau(v, celsius, p):
+        return y_inf_tau(v, celsius, p)[1]
+
+    def u_inf_tau(v, celsius, p):
+        return _boltzmann(v, -70.0, -6.0), 8.0  # voltage-independent time constant
+
+    return Channel(name="user_combined",
+                   gates=(Gate("y", 3, steady_state=y_inf, tau_ms=y_tau,
+                               steady_state_and_tau_ms=y_inf_tau),
+                          Gate("u", 1, steady_state=lambda v, c, p: u_inf_tau(v, c, p)[0],
+                               tau_ms=lambda v, c, p: u_inf_tau(v, c, p)[1],
+                               steady_state_and_tau_ms=u_inf_tau, temperature_scaled=False)),
+                   reversal_mV=-85.0, q10=2.5, reference_celsius=22.0,
+                   parameters=(("v_half_mV", -30.0),), reference="illustration only")
+
+
+def test_user_channel_with_combined_function_agrees_across_backends():
+    # reference: the numpy backend, which calls the combined function once per gate
+    ch = _make_combined_channel(4.0)
+    base = build_cell(_tree(), celsius=30.0, channels=[
+        ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, 0.036),
+        ChannelPlacement(ch, Linear(0.005, 5e-5),  # non-contiguous block
+                         Selector(path_distance_um=(20.0, np.inf)),
+                         parameters={"v_half_mV": Linear(-32.0, 0.02)})])
+    cell = base.with_inputs(recording_sites=all_compartment_sites(base.grid), injections=[
+        CurrentInjection(soma_site(base.grid), StepCurrent(0.6, 1.0, 5.0))])
+    ref, comp = _both(cell, RunSettings(10.0, 0.025))
+    assert np.ptp(ref.v_mV) > 50.0  # it spikes: the gates move through their range
+    _agree(ref.v_mV, comp.v_mV)
+    _agree(ref.final_state.gates[2], comp.final_state.gates[2])
+
+
 def test_uncompilable_rate_function_is_named():
     scipy_special = pytest.importorskip("scipy.special")
 

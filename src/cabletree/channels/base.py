@@ -29,6 +29,15 @@ Rules for writing a channel (built-in or your own)
 4. Gate powers are non-negative integers; a power of 0 makes a state variable
    that evolves but does not enter the conductance.
 5. Cite the published source in :attr:`Channel.reference`.
+6. When a gate's steady state and time constant share work (the same exponent or
+   exponential), write one function ``f(v_mV, celsius, p) -> (x_inf, tau_ms)``
+   returning both (dimensionless, ms; the pair as a tuple), give it as
+   ``steady_state_and_tau_ms`` and define ``steady_state`` and ``tau_ms`` as small
+   named functions taking its first and second entry, so there is one source of
+   truth.  The solvers then evaluate it once per step instead of the two
+   functions separately.  :class:`Channel` checks it when it is constructed: it is
+   called once at a few voltages with the default parameters and must return a
+   pair whose entries match ``steady_state`` and ``tau_ms`` (relative 1e-12).
 
 Gating variables are advanced by exponential (Rush & Larsen 1978, IEEE Trans
 Biomed Eng 25:389-392) integration, exact for a voltage frozen over the step.
@@ -68,10 +77,12 @@ def linear_rate(x_mV, slope_mV):
     float or ndarray
         ``x / (1 - exp(-x/slope))``, mV (multiply by a coefficient in 1/(ms·mV)).
     """
-    u = x_mV / slope_mV
-    small = np.abs(u) < 1e-6
-    u_safe = np.where(small, 1.0, u)
-    return np.where(small, slope_mV * (1.0 + 0.5 * u), x_mV / (1.0 - np.exp(-u_safe)))
+    # w = -x/slope, spelled so that no array is negated: x / -slope is -(x / slope)
+    # to the bit, and slope (1 - w/2) is slope (1 + u/2) with u = -w
+    w = x_mV / -slope_mV
+    small = np.abs(w) < 1e-6
+    w_safe = np.where(small, -1.0, w)
+    return np.where(small, slope_mV * (1.0 - 0.5 * w), x_mV / (1.0 - np.exp(w_safe)))
 
 
 def q10_factor(q10: float, celsius: float, reference_celsius: float) -> float:
@@ -98,7 +109,9 @@ def q10_factor(q10: float, celsius: float, reference_celsius: float) -> float:
 class Gate:
     """One gating variable of a channel.
 
-    Give either ``alpha`` and ``beta`` (1/ms) or ``steady_state`` and ``tau_ms``.
+    Give either ``alpha`` and ``beta`` (1/ms) or ``steady_state`` and ``tau_ms``;
+    with the latter, optionally also ``steady_state_and_tau_ms`` (rule 6 of
+    :mod:`cabletree.channels.base`).
 
     Parameters
     ----------
@@ -112,6 +125,12 @@ class Gate:
         Steady-state value ``f(v_mV, celsius, p)``, dimensionless in [0, 1].
     tau_ms : callable, optional
         Time constant ``f(v_mV, celsius, p)``, ms.
+    steady_state_and_tau_ms : callable, optional
+        Both at once: ``f(v_mV, celsius, p) -> (x_inf, tau_ms)``, a tuple of the
+        dimensionless steady state and the time constant in ms (before
+        temperature scaling), equal to what ``steady_state`` and ``tau_ms``
+        return.  Give it when the two share work; the solvers then call it
+        instead of the pair.  Checked by :class:`Channel` at construction.
     temperature_scaled : bool
         Whether the channel's Q10 factor applies to this gate.
     """
@@ -123,6 +142,7 @@ class Gate:
     steady_state: RateFunction | None = None
     tau_ms: RateFunction | None = None
     temperature_scaled: bool = True
+    steady_state_and_tau_ms: RateFunction | None = None
 
     def __post_init__(self) -> None:
         has_ab = self.alpha is not None and self.beta is not None
@@ -131,6 +151,16 @@ class Gate:
             raise ChannelError(
                 f"gate {self.name!r}: give either alpha and beta, or steady_state and "
                 "tau_ms (exactly one pair)"
+            )
+        if self.steady_state_and_tau_ms is not None and not has_it:
+            raise ChannelError(
+                f"gate {self.name!r}: steady_state_and_tau_ms goes with steady_state and "
+                "tau_ms (give those two as well, defined from it), not with alpha and beta"
+            )
+        if self.steady_state_and_tau_ms is not None and not callable(self.steady_state_and_tau_ms):
+            raise ChannelError(
+                f"gate {self.name!r}: steady_state_and_tau_ms must be a function "
+                f"f(v_mV, celsius, p) -> (x_inf, tau_ms), got {self.steady_state_and_tau_ms!r}"
             )
         if int(self.power) != self.power or self.power < 0:
             raise ChannelError(
@@ -167,7 +197,73 @@ class Gate:
             b = self.beta(v_mV, celsius, p)
             s = a + b
             return a / s, 1.0 / (scale * s)
-        return self.steady_state(v_mV, celsius, p), self.tau_ms(v_mV, celsius, p) / scale
+        inf, tau = self.steady_state_and_tau_unscaled(v_mV, celsius, p)
+        return inf, tau / scale
+
+    def steady_state_and_tau_unscaled(self, v_mV, celsius: float, p):
+        """Steady state and time constant of a steady-state gate, before temperature scaling.
+
+        Calls ``steady_state_and_tau_ms`` once when the gate has it, else
+        ``steady_state`` and ``tau_ms``.
+
+        Parameters
+        ----------
+        v_mV : float or ndarray
+            Membrane potential, mV.
+        celsius : float
+            Temperature, °C.
+        p : namedtuple
+            Channel parameters.
+
+        Returns
+        -------
+        (inf, tau_ms) : tuple of float or ndarray
+            Steady state (dimensionless) and unscaled time constant (ms; may be
+            a scalar for a voltage-independent time constant).
+        """
+        if self.steady_state_and_tau_ms is not None:
+            return self.steady_state_and_tau_ms(v_mV, celsius, p)
+        return self.steady_state(v_mV, celsius, p), self.tau_ms(v_mV, celsius, p)
+
+
+#: Voltages, mV, at which :class:`Channel` checks a gate's combined function.
+_PROBE_V_MV = np.array([-100.0, -80.0, -65.0, -40.0, -20.0, 0.0, 30.0])
+
+
+def _check_combined_function(channel: "Channel", gate: Gate) -> None:
+    """Check a gate's ``steady_state_and_tau_ms`` at :data:`_PROBE_V_MV` (rule 6).
+
+    It must return a pair whose entries are scalars or arrays of the voltages'
+    shape and equal ``steady_state`` and ``tau_ms`` to a relative 1e-12, at the
+    channel's reference temperature with its default parameters.
+
+    Raises
+    ------
+    ChannelError
+        Naming the channel, the gate and what was expected.
+    """
+    where = f"channel {channel.name!r}, gate {gate.name!r}: steady_state_and_tau_ms"
+    p = channel.make_parameters()
+    v, celsius = _PROBE_V_MV.copy(), float(channel.reference_celsius)
+    with np.errstate(all="ignore"):
+        both = gate.steady_state_and_tau_ms(v, celsius, p)
+        if not isinstance(both, tuple) or len(both) != 2:
+            got = (f"a tuple of length {len(both)}" if isinstance(both, tuple)
+                   else f"{type(both).__name__} of shape {np.shape(both)}")
+            raise ChannelError(f"{where} must return a pair (x_inf, tau_ms), got {got}")
+        separate = (gate.steady_state(v, celsius, p), gate.tau_ms(v, celsius, p))
+    for label, value, expected in zip(("x_inf", "tau_ms"), both, separate):
+        if np.shape(value) not in ((), v.shape):
+            raise ChannelError(
+                f"{where}: {label} has shape {np.shape(value)} for {v.size} voltages; "
+                f"expected a scalar or shape {v.shape}")
+        if not np.allclose(value, expected, rtol=1e-12, atol=0.0, equal_nan=True):
+            name = "steady_state" if label == "x_inf" else "tau_ms"
+            raise ChannelError(
+                f"{where}: {label} differs from {name} at the probe voltages "
+                f"{_PROBE_V_MV.tolist()} mV (got {np.broadcast_to(value, v.shape).tolist()}, "
+                f"{name} gives {np.broadcast_to(expected, v.shape).tolist()}); define "
+                f"{name} from the combined function (rule 6)")
 
 
 @dataclass(frozen=True)
@@ -220,6 +316,9 @@ class Channel:
                 raise ChannelError(
                     f"channel {self.name!r}: parameter name {pname!r} must be an identifier"
                 )
+        for gate in self.gates:
+            if gate.steady_state_and_tau_ms is not None:
+                _check_combined_function(self, gate)
 
     @property
     def gate_names(self) -> tuple[str, ...]:

@@ -120,17 +120,21 @@ def _ka_channel(name, v_half_n_mV, zeta0, gmn, a0n, where):
     so a compiler can treat them like the other channels' rate functions.
     """
 
-    def n_inf(v, celsius, p):
-        return 1.0 / (1.0 + np.exp(_ka_exponent(v, celsius, p.shift_mV, p.v_half_n_mV, zeta0)))
-
-    def n_tau(v, celsius, p):
-        # unscaled tau; the floor is multiplied by qt so that tau / qt >= floor.
-        # betan / (a0n (1 + alphan)) = betan n_inf / a0n: the reciprocal is the one
-        # n_inf takes, so a compiler that sees both computes it once
+    def n_inf_tau(v, celsius, p):
+        # steady state and unscaled tau from one exponent and one reciprocal:
+        # betan / (a0n (1 + alphan)) = betan n_inf / a0n; the floor is multiplied by
+        # qt so that tau / qt >= floor
         x = _ka_exponent(v, celsius, p.shift_mV, p.v_half_n_mV, zeta0)
         qt = np.exp(np.log(5.0) * (celsius - 24.0) / 10.0)
         n_inf_value = 1.0 / (1.0 + np.exp(x))
-        return np.maximum(np.exp(gmn * x) * n_inf_value * (1.0 / a0n), _KA_TAU_N_FLOOR_MS * qt)
+        tau = np.maximum(np.exp(gmn * x) * n_inf_value * (1.0 / a0n), _KA_TAU_N_FLOOR_MS * qt)
+        return n_inf_value, tau
+
+    def n_inf(v, celsius, p):
+        return n_inf_tau(v, celsius, p)[0]
+
+    def n_tau(v, celsius, p):
+        return n_inf_tau(v, celsius, p)[1]
 
     def l_inf(v, celsius, p):
         return 1.0 / (1.0 + np.exp(_KA_ZETA_L * (v - _KA_V_HALF_L_MV)
@@ -141,7 +145,8 @@ def _ka_channel(name, v_half_n_mV, zeta0, gmn, a0n, where):
 
     return Channel(
         name=name,
-        gates=(Gate("n", 1, steady_state=n_inf, tau_ms=n_tau, temperature_scaled=True),
+        gates=(Gate("n", 1, steady_state=n_inf, tau_ms=n_tau, temperature_scaled=True,
+                    steady_state_and_tau_ms=n_inf_tau),
                Gate("l", 1, steady_state=l_inf, tau_ms=l_tau, temperature_scaled=False)),
         reversal_mV=MIGLIORE_EK_MV,
         q10=5.0,
@@ -163,12 +168,16 @@ _NA_TAU_M_FLOOR_MS = 0.02
 _NA_TAU_H_FLOOR_MS = 0.5
 
 
+# ``-30.0 - v`` is ``-(v + 30.0)`` to the bit (round-to-nearest is symmetric in
+# sign; only the sign of a zero differs, which linear_rate maps to the same value)
+# with one array pass fewer.
+
 def _na_alpha_m(v):
     return 0.4 * linear_rate(v + 30.0, 7.2)
 
 
 def _na_beta_m(v):
-    return 0.124 * linear_rate(-(v + 30.0), 7.2)
+    return 0.124 * linear_rate(-30.0 - v, 7.2)
 
 
 def _na_alpha_h(v):
@@ -176,20 +185,25 @@ def _na_alpha_h(v):
 
 
 def _na_beta_h(v):
-    return 0.01 * linear_rate(-(v + 45.0), 1.5)
+    return 0.01 * linear_rate(-45.0 - v, 1.5)
 
 
 def _na_qt(celsius):
     return np.exp(np.log(_NA_Q10) * (celsius - 24.0) / 10.0)
 
 
-def _na_m_inf(v, celsius, p):
+def _na_m_inf_tau(v, celsius, p):
     a = _na_alpha_m(v)
-    return a / (a + _na_beta_m(v))
+    s = a + _na_beta_m(v)
+    return a / s, np.maximum(1.0 / s, _NA_TAU_M_FLOOR_MS * _na_qt(celsius))
+
+
+def _na_m_inf(v, celsius, p):
+    return _na_m_inf_tau(v, celsius, p)[0]
 
 
 def _na_m_tau(v, celsius, p):
-    return np.maximum(1.0 / (_na_alpha_m(v) + _na_beta_m(v)), _NA_TAU_M_FLOOR_MS * _na_qt(celsius))
+    return _na_m_inf_tau(v, celsius, p)[1]
 
 
 def _na_h_inf(v, celsius, p):
@@ -202,7 +216,8 @@ def _na_h_tau(v, celsius, p):
 
 na_dendritic = Channel(
     name="na_dendritic",
-    gates=(Gate("m", 3, steady_state=_na_m_inf, tau_ms=_na_m_tau),
+    gates=(Gate("m", 3, steady_state=_na_m_inf, tau_ms=_na_m_tau,
+                steady_state_and_tau_ms=_na_m_inf_tau),
            Gate("h", 1, steady_state=_na_h_inf, tau_ms=_na_h_tau)),
     reversal_mV=55.0,
     q10=_NA_Q10,
@@ -223,20 +238,26 @@ def _kdr_exponent(v, celsius):
     return _KDR_ZETA * (v - _KDR_V_HALF_MV) * thermal_factor_per_mV(celsius)
 
 
+def _kdr_n_inf_tau(v, celsius, p):
+    # one exponent, one reciprocal: betan / (a0 (1 + alphan)) = betan n_inf / a0
+    x = _kdr_exponent(v, celsius)
+    n_inf_value = 1.0 / (1.0 + np.exp(x))
+    tau = np.maximum(np.exp(_KDR_GM * x) * n_inf_value * (1.0 / _KDR_A0), _KDR_TAU_FLOOR_MS)
+    return n_inf_value, tau
+
+
 def _kdr_n_inf(v, celsius, p):
-    return 1.0 / (1.0 + np.exp(_kdr_exponent(v, celsius)))
+    return _kdr_n_inf_tau(v, celsius, p)[0]
 
 
 def _kdr_n_tau(v, celsius, p):
-    # betan / (a0 (1 + alphan)) = betan n_inf / a0 (n_inf's reciprocal, shared)
-    x = _kdr_exponent(v, celsius)
-    n_inf_value = 1.0 / (1.0 + np.exp(x))
-    return np.maximum(np.exp(_KDR_GM * x) * n_inf_value * (1.0 / _KDR_A0), _KDR_TAU_FLOOR_MS)
+    return _kdr_n_inf_tau(v, celsius, p)[1]
 
 
 kdr = Channel(
     name="kdr",
-    gates=(Gate("n", 1, steady_state=_kdr_n_inf, tau_ms=_kdr_n_tau),),
+    gates=(Gate("n", 1, steady_state=_kdr_n_inf, tau_ms=_kdr_n_tau,
+                steady_state_and_tau_ms=_kdr_n_inf_tau),),
     reversal_mV=MIGLIORE_EK_MV,
     q10=1.0,
     reference_celsius=24.0,

@@ -452,8 +452,8 @@ class ReferenceStepper:
                         inf = a / s
                         e = np.exp(np.multiply(s, -dt_eff, out=s), out=s)
                     else:  # tau may be a constant: no in-place update of it
-                        inf = gate.steady_state(vb, celsius, chunk.p)
-                        e = np.divide(-dt_eff, gate.tau_ms(vb, celsius, chunk.p))
+                        inf, tau = gate.steady_state_and_tau_unscaled(vb, celsius, chunk.p)
+                        e = np.divide(-dt_eff, tau)
                         e = np.exp(e, out=e) if isinstance(e, np.ndarray) else np.exp(e)
                     xj = x[j, chunk.entries]
                     xj -= inf
