@@ -252,6 +252,32 @@ def test_uncompilable_rate_function_is_named():
     assert "odd.y.steady_state" in msg and "backend='reference'" in msg
 
 
+def test_uncompilable_combined_function_is_named():
+    scipy_special = pytest.importorskip("scipy.special")
+
+    def odd_both(v, celsius, p):
+        return scipy_special.expit((v + 40.0) / 5.0), 2.0 + 0.0 * v  # numba cannot type expit
+
+    gate = Gate("y", 1, steady_state=lambda v, c, p: odd_both(v, c, p)[0],
+                tau_ms=lambda v, c, p: odd_both(v, c, p)[1], steady_state_and_tau_ms=odd_both)
+    odd = Channel(name="odd2", gates=(gate,), reversal_mV=-80.0, reference="illustration only")
+    cell = build_cell(_tree(), channels=[ChannelPlacement(odd, 0.001)])
+    with pytest.raises(SolverError) as info:
+        simulate(cell, RunSettings(0.1, 0.025), backend="compiled")
+    msg = str(info.value)
+    assert "odd2.y.steady_state_and_tau_ms" in msg and "odd_both" in msg
+
+
+def test_combined_function_compiles_recursively():
+    # the kernel calls the combined function; its helper (_boltzmann) is compiled too
+    ch = _make_combined_channel(4.0)
+    p = ch.make_parameters()
+    inf, tau = jit_rate_function(ch.gates[1].steady_state_and_tau_ms)(-70.0, 22.0, p)
+    assert (inf, tau) == (pytest.approx(0.5, rel=1e-14), 8.0)
+    inf, tau = jit_rate_function(ch.gates[0].steady_state_and_tau_ms)(-30.0, 22.0, p)
+    assert inf == pytest.approx(0.5, rel=1e-14) and tau == pytest.approx(2.5, rel=1e-14)
+
+
 @pytest.mark.parametrize("method,smoothing", [("backward_euler", True),
                                               ("crank_nicolson", False)])
 def test_state_save_restore_continues_exactly(method, smoothing, tmp_path):
