@@ -23,9 +23,10 @@ exactly in O(N):
   unchanged (a passive cell at a fixed step), so such a step costs the two
   ``dpttrs`` sweeps only.  Same answer as :class:`TreeMatrix` to round-off.
 
-The work arrays of a step (conductances, diagonal, right-hand side, the tree
-solver's path-ordered arrays) are kept on the stepper and gate states are
-updated in place.
+The work arrays of a step (diagonal, right-hand side, the tree solver's
+path-ordered arrays) are kept on the stepper and gate states are updated in
+place; channels, synapses and injections add their conductances and currents
+straight into the diagonal and right-hand side of the tree system.
 """
 
 from __future__ import annotations
@@ -415,9 +416,9 @@ class ReferenceStepper:
         self.n_solves = 0
         n = cell.n_compartments
         # work arrays reused every step (the tree solver copies what it keeps)
-        self._G, self._J, self._d, self._r, self._abs_v = (np.empty(n) for _ in range(5))
+        self._d, self._r = np.empty(n), np.empty(n)
         self._v_buffers = (np.empty(n), np.empty(n))  # new potentials, never the current ones
-        self._c_over_h = {}
+        self._system_constants = {}
         self._table_cache = {}
         self._tables = (None,) * len(self.blocks)
         self._g = np.empty(min(n, GATE_CHUNK))  # a chunk's channel conductance
@@ -425,6 +426,10 @@ class ReferenceStepper:
     # -- pieces of one step ---------------------------------------------------
     def _advance_gates(self, v, gates, dt_gate, G, J):
         """Gates after ``dt_gate`` (Rush-Larsen), updated in place; adds the conductances to G, J.
+
+        ``G`` receives each compartment's channel conductance (µS) and ``J`` the
+        conductance times the reversal potential (nA); the stepper passes the
+        diagonal and right-hand side of the tree system, which contain them.
 
         Rate gates use ``exp(-dt phi (alpha + beta))`` and the open fraction is a
         product of repeated multiplications, the arithmetic of the compiled kernel.
@@ -467,9 +472,14 @@ class ReferenceStepper:
                             started = True
                 if not started:  # no gate enters the conductance
                     np.copyto(g, chunk.gmax_uS)
-                G[chunk.where] += g
-                g *= chunk.reversal_mV
-                J[chunk.where] += g
+                if isinstance(chunk.where, slice):
+                    G[chunk.where] += g
+                    g *= chunk.reversal_mV
+                    J[chunk.where] += g
+                else:  # distinct indices: the same sums as G[where] += g, in one pass
+                    np.add.at(G, chunk.where, g)
+                    g *= chunk.reversal_mV
+                    np.add.at(J, chunk.where, g)
         return gates
 
     def _advance_synapses(self, states, h, step, first_half, second_half):
@@ -511,25 +521,35 @@ class ReferenceStepper:
             np.add.at(G, grp.compartment, g)
             np.add.at(J, grp.compartment, g * k.reversal_mV)
 
-    def _implicit(self, v, h_eff, G, J):
-        """Backward-Euler potential after ``h_eff``: solve ``(C/h + G + A) v' = C v / h + J``."""
-        c = self._c_over_h.get(h_eff)
-        if c is None:
-            c = self._c_over_h[h_eff] = self.cell.capacitance_nF / h_eff
-        d = np.add(c, G, out=self._d)
-        d += self.axial_diag
+    def _start_system(self, v, h_eff):
+        """Diagonal and right-hand side of the implicit step before channels and inputs.
+
+        The backward-Euler step after ``h_eff`` solves
+        ``(C/h + G_leak + G + A) v' = C v / h + G_leak E_leak + J``; this returns
+        ``d = C/h + A_diag + G_leak`` (kept per ``h_eff``) and
+        ``r = C v / h + G_leak E_leak`` in the stepper's work arrays, to which the
+        channels, synapses and injections then add their ``G`` and ``J``.
+        """
+        const = self._system_constants.get(h_eff)
+        if const is None:
+            c = self.cell.capacitance_nF / h_eff
+            const = self._system_constants[h_eff] = (c, c + self.axial_diag + self.cell.leak_uS)
+        c, base = const
+        d = self._d
+        np.copyto(d, base)
         r = np.multiply(c, v, out=self._r)
-        r += J
+        r += self.leak_current_nA
+        return d, r
+
+    def _implicit(self, v, d, r):
+        """Backward-Euler potential: solve the system ``d``, ``r`` of :meth:`_start_system`."""
         self.n_solves += 1
         out = self._v_buffers[1] if v is self._v_buffers[0] else self._v_buffers[0]
         return self.tree.solve(d, self.offdiag, r, out=out)
 
     def _step(self, t, v, gates, lag, syn, h, mode, current, step, halves):
         """One backward-Euler (mode 'be') or staggered CN ('cn') step of size h."""
-        G = self._G
-        J = self._J
-        np.copyto(G, self.cell.leak_uS)
-        np.copyto(J, self.leak_current_nA)
+        G, J = self._start_system(v, h / 2 if mode == "cn" else h)
         if mode == "cn":
             gates = self._advance_gates(v, gates, h / 2 + lag, G, J)
             new_lag = h / 2
@@ -546,12 +566,10 @@ class ReferenceStepper:
         if current is not None:
             J[self._injected] += np.bincount(self._injection_slot, current,
                                              minlength=self._injected.size)
+        v_new = self._implicit(v, G, J)
         if mode == "cn":
-            v_new = self._implicit(v, h / 2, G, J)
             v_new *= 2.0
             v_new -= v
-        else:
-            v_new = self._implicit(v, h, G, J)
         return v_new, gates, new_lag, syn_new
 
     def _injection_vector(self, sched: StepSchedule, k: int, which: str):
@@ -616,7 +634,7 @@ class ReferenceStepper:
                                                 self._injection_vector(sched, k, "end"), k,
                                                 (True, True))
             t = sched.t0_ms + (k + 1) * dt
-            if not np.abs(v, out=self._abs_v).max() <= limit:  # NaN fails too
+            if not (v.max() <= limit and v.min() >= -limit):  # NaN fails too
                 c = int(np.argmax(~(np.abs(v) <= limit)))
                 raise NumericalInstabilityError(
                     f"membrane potential {float(v[c])!r} mV at compartment {c} (path distance "
