@@ -141,7 +141,7 @@ def time_run(cell, backend, n_steps, repeats, dt=0.025):
     scratch = 0
     if backend.startswith("compiled"):
         n = cell.n_compartments
-        scratch = 4 * n * 8 + stepper.threads * stepper.max_strip * (5 * 8 + 4)
+        scratch = 4 * n * 8 + stepper.kernel_threads * stepper.max_strip * (5 * 8 + 4)
     return float(np.median(times)) / n_steps, (peak + scratch) / 1e6
 
 

@@ -109,6 +109,12 @@ def test_run_reports_progress(short_scenario, tmp_path, capsys):
     assert "100.0 %" in err and "t = 12.0 ms" in err
 
 
+def test_run_takes_threads(short_scenario, tmp_path):
+    # --threads overrides run.threads through the validated scenario
+    assert main(["run", str(short_scenario), "--out", str(tmp_path), "--threads", "2"]) == 0
+    assert main(["run", str(short_scenario), "--out", str(tmp_path), "--threads", "0"]) == 1
+
+
 def test_check_swc_with_repairs_and_hint(capsys):
     # A zero-radius single-point soma (the Purkinje reconstruction, tests/data/SOURCES.md)
     # is refused with a hint naming the command-line and scenario spellings of the repair;

@@ -206,6 +206,30 @@ def test_rate_tables_are_opt_in_from_the_run_table():
         r"^test\.toml: run\.rate_table_step_mV: expected a number > 0 in mV, got 0\.0$")
 
 
+def test_threads_come_from_the_run_table_and_reach_the_solver(monkeypatch):
+    # plumbing: run.threads (validated at the boundary) reaches the compiled stepper;
+    # an explicit argument of run_scenario overrides it
+    from cabletree.solver import compiled
+    bad(lambda d: d["run"].update(threads=0),
+        r"^test\.toml: run\.threads: expected a number >= 1, got 0$")
+    bad(lambda d: d["run"].update(threads=1.5),
+        r"^test\.toml: run\.threads: expected an integer, got float 1\.5$")
+    seen = []
+    real = compiled.CompiledStepper
+
+    def recording(cell, threads=1):
+        seen.append(threads)
+        return real(cell, threads=threads)
+
+    monkeypatch.setattr(compiled, "CompiledStepper", recording)
+    s = with_overrides(scenario_from_dict(base_dict()),
+                       {"run.threads": 2, "run.settle_ms": 0.0})
+    a = run_scenario(s, backend="compiled")
+    b = run_scenario(s, backend="compiled", threads=1)
+    assert seen == [2, 1]
+    np.testing.assert_array_equal(a.v.values, b.v.values)  # small cell: serial either way
+
+
 def test_error_missing_key():
     bad(lambda d: d["run"].pop("t_stop_ms"), r"^test\.toml: run\.t_stop_ms: missing required key$")
     bad(lambda d: d["channels"]["ka"].pop("gmax"),

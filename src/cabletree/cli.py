@@ -80,9 +80,11 @@ def _run_progress(min_interval_s: float = 2.0):
 def _cmd_run(args) -> int:
     from . import report
     from .results import save_dataset
-    from .scenario import load_scenario, run_scenario
+    from .scenario import load_scenario, run_scenario, with_overrides
 
     scenario = load_scenario(args.scenario)
+    if args.threads is not None:
+        scenario = with_overrides(scenario, {"run.threads": args.threads})
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     analysis = scenario.analysis_spec
@@ -135,6 +137,9 @@ def _add_run(sub) -> None:
                    help="figure format (repeat for several; default from the scenario, else png)")
     p.add_argument("--backend", default="auto", choices=("auto", "reference", "compiled"),
                    help="solver backend (default: auto = the scenario's run.backend)")
+    p.add_argument("--threads", type=int, default=None, metavar="N",
+                   help="threads for the compiled backend's gate loops, used where they pay "
+                        "off (default: the scenario's run.threads, else 1)")
     p.set_defaults(func=_cmd_run)
 
 

@@ -61,7 +61,9 @@ Sections
 ``[run]``
     ``t_stop_ms`` (required), ``dt_ms`` (0.025), ``method`` (``crank_nicolson``),
     ``record_interval_ms``, ``v_init_mV`` (-65), ``celsius`` (34), ``seed`` (0; the
-    default of every seed not given), ``backend`` (``auto``), ``settle_ms`` (0: run
+    default of every seed not given), ``backend`` (``auto``), ``threads`` (1: threads
+    for the compiled backend's gate loops, used where they pay off; sweeps always
+    run each cell on one thread), ``settle_ms`` (0: run
     this long without inputs first and start from the state reached, so the
     recording begins at rest), ``rate_table_step_mV`` (absent: exact rates; opt-in
     tabulated rates at this voltage spacing, see :mod:`cabletree.solver.tables`).
@@ -388,6 +390,7 @@ class _Compiled:
     cell: Any
     settings: Any
     backend: str
+    threads: int
     settle_ms: float
     seeds: dict
     site_names: dict
@@ -820,7 +823,7 @@ def _run_settings(ctx, data: dict):
     r = _table(ctx, data["run"], p)
     _keys(ctx, r, p, required=("t_stop_ms",),
           optional=("dt_ms", "method", "record_interval_ms", "v_init_mV", "celsius", "seed",
-                    "backend", "settle_ms", "rate_table_step_mV"))
+                    "backend", "threads", "settle_ms", "rate_table_step_mV"))
     t_stop = _num(ctx, r, "t_stop_ms", p, lo=0, lo_open=True)
     dt = _num(ctx, r, "dt_ms", p, 0.025, lo=0, lo_open=True)
     if dt > t_stop:
@@ -841,8 +844,9 @@ def _run_settings(ctx, data: dict):
     celsius = _num(ctx, r, "celsius", p, 34.0, lo=-5.0, hi=50.0, unit="°C")
     seed = _num(ctx, r, "seed", p, 0, lo=0, integer=True, unit="")
     backend = _str(ctx, r, "backend", p, choices=BACKENDS, default="auto")
+    threads = _num(ctx, r, "threads", p, 1, lo=1, hi=256, integer=True, unit="")
     settle = _num(ctx, r, "settle_ms", p, 0.0, lo=0)
-    return settings, celsius, seed, backend, settle
+    return settings, celsius, seed, backend, threads, settle
 
 
 def _analysis_check(ctx, data: dict, site_names: set, t_stop: float) -> None:
@@ -862,7 +866,7 @@ def _compile(data: dict, base_dir: str, source: str) -> _Compiled:
     if not isinstance(data, dict):
         raise _err(ctx, "", f"expected a table at the top level, got {_show(data)}")
     _keys(ctx, data, "", required=("morphology", "run"), optional=_TOP)
-    settings, celsius, seed, backend, settle = _run_settings(ctx, data)
+    settings, celsius, seed, backend, threads, settle = _run_settings(ctx, data)
     morph = _morphology(ctx, data)
     membrane = _membrane(ctx, data)
     rule = _grid_rule(ctx, data)
@@ -887,7 +891,7 @@ def _compile(data: dict, base_dir: str, source: str) -> _Compiled:
         raise _err(ctx, "", f"the cell model cannot be built: {exc}") from None
     names = {s.name for s in cell.recording_sites}
     _analysis_check(ctx, data, names, settings.t_stop_ms)
-    return _Compiled(cell, settings, backend, settle, seeds,
+    return _Compiled(cell, settings, backend, int(threads), settle, seeds,
                      {k: [s.name for s in v] for k, v in sites.items()})
 
 
@@ -1053,7 +1057,7 @@ def scenario_seeds(scenario: Scenario) -> dict:
     return dict(_compile(scenario.data, scenario.base_dir, scenario.source_path).seeds)
 
 
-def _settled_state(cell, settings, settle_ms: float, backend: str):
+def _settled_state(cell, settings, settle_ms: float, backend: str, threads: int):
     from .cell import SynapseGroup
     from .solver import RunSettings, simulate
 
@@ -1064,11 +1068,12 @@ def _settled_state(cell, settings, settle_ms: float, backend: str):
                       v_init_mV=settings.v_init_mV,
                       rate_table_step_mV=settings.rate_table_step_mV,
                       rate_table_range_mV=settings.rate_table_range_mV)
-    state = simulate(rest, pre, backend=backend).final_state
+    state = simulate(rest, pre, backend=backend, threads=threads).final_state
     return dataclasses.replace(state, time_ms=0.0)
 
 
-def run_scenario(scenario: Scenario, backend: str = "auto", progress=None):
+def run_scenario(scenario: Scenario, backend: str = "auto", progress=None,
+                 threads: int | None = None):
     """Run a scenario and return its labelled results.
 
     Parameters
@@ -1079,6 +1084,9 @@ def run_scenario(scenario: Scenario, backend: str = "auto", progress=None):
     progress : callable, optional
         ``progress(fraction_done, time_ms)``, called during the recorded run (see
         :func:`cabletree.solver.simulate`).
+    threads : int, optional
+        Threads for the compiled backend (see :func:`cabletree.solver.simulate`);
+        ``None`` defers to ``run.threads`` of the scenario.
 
     Returns
     -------
@@ -1099,9 +1107,11 @@ def run_scenario(scenario: Scenario, backend: str = "auto", progress=None):
 
     c = _compile(scenario.data, scenario.base_dir, scenario.source_path)
     chosen = c.backend if backend == "auto" else backend
-    state = (_settled_state(c.cell, c.settings, c.settle_ms, chosen) if c.settle_ms > 0
-             else None)
-    out = simulate(c.cell, c.settings, initial_state=state, backend=chosen, progress=progress)
+    n_threads = c.threads if threads is None else threads
+    state = (_settled_state(c.cell, c.settings, c.settle_ms, chosen, n_threads)
+             if c.settle_ms > 0 else None)
+    out = simulate(c.cell, c.settings, initial_state=state, backend=chosen, progress=progress,
+                   threads=n_threads)
     ds = make_dataset(c.cell, out, scenario_text=dump_scenario(scenario))
     ds.attrs["seeds"] = "; ".join(f"{k}={v}" for k, v in c.seeds.items())
     ds.attrs["run_seed"] = int(c.seeds["run.seed"])

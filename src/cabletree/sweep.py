@@ -607,7 +607,7 @@ def execute_task(task: RunTask) -> RunOutcome:
     try:
         from .scenario import run_scenario, scenario_from_dict
         scenario = scenario_from_dict(task.data, task.base_dir, task.source)
-        ds = run_scenario(scenario, backend=task.backend)
+        ds = run_scenario(scenario, backend=task.backend, threads=1)  # runs go in parallel
         small = reduce_run(ds, scenario.analysis_spec, task.traces)
         return RunOutcome(task.run_hash, small, None, time.perf_counter() - start)
     except Exception as exc:  # recorded, the sweep goes on

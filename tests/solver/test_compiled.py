@@ -341,12 +341,14 @@ def test_rate_functions_compile_recursively():
     assert g(-38.0, 22.0, p) == pytest.approx(0.5, rel=1e-14)
 
 
-def test_two_threads_agree_with_one_thread_and_reference():
+def test_two_threads_agree_with_one_thread_and_reference(monkeypatch):
     # reference: the numpy backend (semantics) and the single-thread kernel; the
     # A-type split at 100 µm gives non-contiguous channel blocks, which the chunked
     # two-thread gate loop must update without two threads writing one compartment
     from cabletree.channels import hoffman_gradient, ih, ka_placements
+    from cabletree.solver import compiled
     from cabletree.solver.compiled import CompiledStepper
+    monkeypatch.setattr(compiled, "MIN_COMPARTMENTS_PER_THREAD", 1)  # a small tree, threaded
     from cabletree.solver.plan import make_schedule
     from cabletree.solver.reference import ReferenceStepper
     channels = [ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, 0.036),
@@ -446,6 +448,7 @@ def test_many_strips_agree_with_reference(monkeypatch, threads, table_step_mV):
     from cabletree.solver.plan import make_schedule
     from cabletree.solver.reference import ReferenceStepper
     monkeypatch.setattr(compiled, "STRIP_COMPARTMENTS", 16)
+    monkeypatch.setattr(compiled, "MIN_COMPARTMENTS_PER_THREAD", 1)
     channels = [ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, 0.036),
                 *ka_placements(hoffman_gradient(0.005), boundary_um=100.0),
                 ChannelPlacement(ih, Linear(5e-5, 2e-7), Selector(branch_order=(2, 9)))]
@@ -467,3 +470,34 @@ def test_many_strips_agree_with_reference(monkeypatch, threads, table_step_mV):
     _agree(ref[0], got[0])
     for a, b in zip(ref[1].gates, got[1].gates):
         _agree(a, b)
+
+
+def test_threads_only_where_they_pay_off(monkeypatch):
+    # below MIN_COMPARTMENTS_PER_THREAD per thread, or without channels, a threaded
+    # run was measured slower than a serial one (benchmarks/README.md): the kernel
+    # then runs serially, with the same answers
+    from cabletree.solver import compiled
+    small = _hh_cell()
+    assert compiled.CompiledStepper(small, threads=2).kernel_threads == 1
+    assert compiled.CompiledStepper(_passive_cell(), threads=2).kernel_threads == 1
+    monkeypatch.setattr(compiled, "MIN_COMPARTMENTS_PER_THREAD", 1)
+    assert compiled.CompiledStepper(small, threads=2).kernel_threads == 2
+    assert compiled.CompiledStepper(_passive_cell(), threads=2).kernel_threads == 1
+    with pytest.raises(SolverError, match="threads must be an integer >= 1"):
+        compiled.CompiledStepper(small, threads=0)
+
+
+def test_simulate_passes_threads_to_the_compiled_backend(monkeypatch):
+    # the same answers with threads (reference: the serial kernel, 1e-12); threads
+    # is validated for either backend
+    from cabletree.solver import compiled
+    monkeypatch.setattr(compiled, "MIN_COMPARTMENTS_PER_THREAD", 1)
+    cell = _hh_cell(injections=[CurrentInjection(Site("soma", 0), StepCurrent(0.3, 1.0, 5.0))])
+    settings = RunSettings(6.0, 0.025)
+    one = simulate(cell, settings, backend="compiled")
+    two = simulate(cell, settings, backend="compiled", threads=2)
+    assert one.v_mV.max() > 0.0
+    _agree(one.v_mV, two.v_mV, rel=1e-12)
+    for backend in ("compiled", "reference"):
+        with pytest.raises(SolverError, match="threads must be an integer >= 1, got 0"):
+            simulate(cell, settings, backend=backend, threads=0)

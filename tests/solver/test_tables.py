@@ -168,13 +168,15 @@ def test_settings_are_validated(kwargs):
 
 
 @pytest.mark.skipif("compiled" not in available_backends(), reason="numba not installed")
-def test_two_threads_with_tables_agree_with_the_reference():
+def test_two_threads_with_tables_agree_with_the_reference(monkeypatch):
     # non-contiguous A-type blocks shared by both threads' compartment ranges, each
     # thread with its own lookup scratch; the reference backend is the semantics
     from cabletree.channels import hoffman_gradient, ka_placements
+    from cabletree.solver import compiled
     from cabletree.solver.compiled import CompiledStepper
     from cabletree.solver.plan import make_schedule, resting_state
     from cabletree.solver.reference import ReferenceStepper
+    monkeypatch.setattr(compiled, "MIN_COMPARTMENTS_PER_THREAD", 1)  # a small tree, threaded
     channels = [ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, 0.036),
                 *ka_placements(hoffman_gradient(0.005), boundary_um=60.0)]
     base = build_cell(synthetic.random_tree(9, seed=3, samples_per_branch=3),

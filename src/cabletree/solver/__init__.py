@@ -64,9 +64,11 @@ def available_backends() -> tuple[str, ...]:
     return tuple(out)
 
 
-def _stepper(cell: CellModel, backend: str):
+def _stepper(cell: CellModel, backend: str, threads: int = 1):
     if backend not in BACKENDS:
         raise SolverError(f"unknown backend {backend!r}; expected one of {list(BACKENDS)}")
+    if isinstance(threads, bool) or int(threads) != threads or threads < 1:
+        raise SolverError(f"threads must be an integer >= 1, got {threads!r}")
     if backend == "auto":
         backend = "compiled" if "compiled" in available_backends() else "reference"
     if backend == "compiled":
@@ -75,13 +77,14 @@ def _stepper(cell: CellModel, backend: str):
         except ImportError as exc:
             raise SolverError(f"the compiled backend is not available here ({exc}); use "
                               "backend='reference'") from exc
-        return CompiledStepper(cell), backend
+        return CompiledStepper(cell, threads=int(threads)), backend
     from .reference import ReferenceStepper
     return ReferenceStepper(cell), backend
 
 
 def simulate(cell: CellModel, settings: RunSettings, *, initial_state: SolverState | None = None,
-             backend: str = "auto", progress=None, progress_chunks: int = 20) -> RunOutput:
+             backend: str = "auto", progress=None, progress_chunks: int = 20,
+             threads: int = 1) -> RunOutput:
     """Integrate a cell model in time.
 
     Parameters
@@ -103,6 +106,11 @@ def simulate(cell: CellModel, settings: RunSettings, *, initial_state: SolverSta
         so the result is unchanged.
     progress_chunks : int
         Number of pieces when ``progress`` is given.
+    threads : int
+        Threads for the compiled backend's gate loops (>= 1; used where it pays
+        off, see :class:`cabletree.solver.compiled.CompiledStepper`; the tree
+        solve stays serial).  The reference backend always runs serially.  Leave
+        it at 1 for sweeps, which run many cells in parallel instead.
 
     Returns
     -------
@@ -136,7 +144,7 @@ def simulate(cell: CellModel, settings: RunSettings, *, initial_state: SolverSta
 
     state = initial_state if initial_state is not None else resting_state(cell, settings.v_init_mV)
     check_state(cell, state)
-    stepper, used = _stepper(cell, backend)
+    stepper, used = _stepper(cell, backend, threads)
     record_index = np.array([s.compartment for s in cell.recording_sites], dtype=np.int64)
     every = settings.record_every
     n_records_total = settings.n_steps // every

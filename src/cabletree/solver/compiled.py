@@ -932,6 +932,12 @@ def _chunk_bounds(n: int, blocks, n_chunks: int) -> np.ndarray:
     return np.concatenate([[0], inner, [n]]).astype(np.int64)
 
 
+#: Fewest compartments per thread for which threads pay off: below it (or for a cell
+#: without channels, which has no gate loops) a two-thread run was measured no faster
+#: than one thread (benchmarks/README.md), so the kernel runs serially.
+MIN_COMPARTMENTS_PER_THREAD = 2500
+
+
 class CompiledStepper:
     """Integrates a :class:`CellModel` with the numba kernel.
 
@@ -941,6 +947,9 @@ class CompiledStepper:
     threads : int
         1 (default) runs serially; 2 or more split the gate loops over that many
         compartment ranges run on numba's thread pool (the tree solve stays serial).
+        Only used where it pays off: a cell with channels and at least
+        :data:`MIN_COMPARTMENTS_PER_THREAD` compartments per thread; otherwise the
+        kernel runs serially (``kernel_threads`` says which).
 
     Raises
     ------
@@ -955,6 +964,8 @@ class CompiledStepper:
         self.threads = int(threads)
         grid = cell.grid
         n = cell.n_compartments
+        pays_off = bool(cell.channels) and n >= MIN_COMPARTMENTS_PER_THREAD * self.threads
+        self.kernel_threads = self.threads if pays_off else 1
         # the kernel numbers compartments its own way (kernel_order): every
         # per-compartment array below is in that order, and run() maps states,
         # inputs and records between it and the grid's order
@@ -983,7 +994,7 @@ class CompiledStepper:
             self.entry_order.append(e)
             positions.append(np.ascontiguousarray(pos[e]))
         bounds, self.thread_strips = _strip_bounds(n, list(zip(self.channels, positions)),
-                                                   self.threads, STRIP_COMPARTMENTS)
+                                                   self.kernel_threads, STRIP_COMPARTMENTS)
         self.max_strip = int(max(1, np.max(np.diff(bounds))))
         self.block_static = []
         for block, idx, e in zip(cell.channels, positions, self.entry_order):
@@ -1012,7 +1023,7 @@ class CompiledStepper:
         if tabulated not in self._kernels:
             try:
                 self._kernels[tabulated] = _load_kernel(self.channels, self.contiguous,
-                                                        self.threads, tabulated)
+                                                        self.kernel_threads, tabulated)
             except SolverError:
                 raise
             except Exception as exc:
