@@ -18,7 +18,8 @@ import numpy as np
 
 from ..cell import CellModel
 from ..errors import SolverError
-from .plan import METHODS, RunSettings, SolverState, check_state, make_schedule, resting_state
+from .plan import (METHODS, RunSettings, SolverState, check_state, check_threads, make_schedule,
+                   resting_state)
 
 __all__ = ["simulate", "RunOutput", "RunSettings", "SolverState", "METHODS", "BACKENDS",
            "resting_state", "available_backends"]
@@ -67,8 +68,7 @@ def available_backends() -> tuple[str, ...]:
 def _stepper(cell: CellModel, backend: str, threads: int = 1):
     if backend not in BACKENDS:
         raise SolverError(f"unknown backend {backend!r}; expected one of {list(BACKENDS)}")
-    if isinstance(threads, bool) or int(threads) != threads or threads < 1:
-        raise SolverError(f"threads must be an integer >= 1, got {threads!r}")
+    threads = check_threads(threads)
     if backend == "auto":
         backend = "compiled" if "compiled" in available_backends() else "reference"
     if backend == "compiled":
@@ -77,7 +77,7 @@ def _stepper(cell: CellModel, backend: str, threads: int = 1):
         except ImportError as exc:
             raise SolverError(f"the compiled backend is not available here ({exc}); use "
                               "backend='reference'") from exc
-        return CompiledStepper(cell, threads=int(threads)), backend
+        return CompiledStepper(cell, threads=threads), backend
     from .reference import ReferenceStepper
     return ReferenceStepper(cell), backend
 

@@ -88,7 +88,7 @@ from ..cell import CellModel
 from ..fileio import write_atomically
 from ..errors import NumericalInstabilityError, SolverError
 from ..inputs import double_exponential_peak
-from .plan import RunSettings, SolverState, StepSchedule
+from .plan import RunSettings, SolverState, StepSchedule, check_threads
 from .tables import tables_for_settings
 
 __all__ = ["CompiledStepper", "fast_exp", "kernel_cache_dir", "FASTMATH_FLAGS"]
@@ -353,6 +353,15 @@ def _fingerprint(func, seen=None) -> str:
     return "|".join(parts)
 
 
+def _gate_functions(gate) -> tuple:
+    """Names of a gate's rate functions, in the order the generated kernel numbers
+    them (``R_<block>_<gate>_<q>``): the pair, then the combined function if any."""
+    names = ("alpha", "beta") if gate.uses_rates else ("steady_state", "tau_ms")
+    if gate.steady_state_and_tau_ms is not None:
+        names += ("steady_state_and_tau_ms",)
+    return names
+
+
 def _rate_functions(channel):
     """(label, function) of every rate function of a channel.
 
@@ -360,11 +369,9 @@ def _rate_functions(channel):
     from it, so a diagnosis names it rather than its callers.
     """
     out = []
-    for j, gate in enumerate(channel.gates):
-        names = ("alpha", "beta") if gate.uses_rates else ("steady_state", "tau_ms")
-        if gate.steady_state_and_tau_ms is not None:
-            names = ("steady_state_and_tau_ms",) + names
-        for n in names:
+    for gate in channel.gates:
+        names = _gate_functions(gate)
+        for n in names[2:] + names[:2]:
             out.append((f"{channel.name}.{gate.name}.{n}", getattr(gate, n)))
     return out
 
@@ -454,9 +461,6 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
                       "        w0[kk] = inf",
                       f"        w1[kk] = -{step} / tau"]
         else:
-            # both rate functions before either store: a store to w0 could alias
-            # the parameter array for the compiler, which would then evaluate
-            # the subexpressions they share (exponentials) twice
             lines += [f"        vi = {vi}",
                       f"        p = {ptuple}",
                       f"        inf = R_{b}_{j}_0(vi, celsius, p)",
@@ -745,11 +749,8 @@ def _load_kernel(channels: tuple, contiguous: tuple, threads: int, tabulated: tu
     for b, ch in enumerate(channels):
         module.__dict__[f"PT_{b}"] = ch.parameter_tuple
         for j, gate in enumerate(ch.gates):
-            fs = (gate.alpha, gate.beta) if gate.uses_rates else (gate.steady_state, gate.tau_ms)
-            if gate.steady_state_and_tau_ms is not None:
-                fs += (gate.steady_state_and_tau_ms,)
-            for q, f in enumerate(fs):
-                module.__dict__[f"R_{b}_{j}_{q}"] = jit_rate_function(f)
+            for q, function_name in enumerate(_gate_functions(gate)):
+                module.__dict__[f"R_{b}_{j}_{q}"] = jit_rate_function(getattr(gate, function_name))
     sys.modules[name] = module  # numba's cache finds the module's globals by name
     spec.loader.exec_module(module)
     _KERNELS[key] = module.run
@@ -887,7 +888,8 @@ def kernel_order(parent: np.ndarray, block_indices) -> np.ndarray:
 
 
 #: Compartments per strip of the gate loops: each thread updates its range strip by
-#: strip, every channel block in turn, so the gate scratch stays in the level-1 cache.
+#: strip, every channel block in turn, so the gate scratch (five rows of doubles,
+#: 160 kB) stays in the level-2 cache; 128-2048 measured slower (benchmarks/README.md).
 STRIP_COMPARTMENTS = 4096
 
 
@@ -958,10 +960,8 @@ class CompiledStepper:
     """
 
     def __init__(self, cell: CellModel, threads: int = 1):
-        if int(threads) != threads or threads < 1:
-            raise SolverError(f"threads must be an integer >= 1, got {threads!r}")
         self.cell = cell
-        self.threads = int(threads)
+        self.threads = check_threads(threads)
         grid = cell.grid
         n = cell.n_compartments
         pays_off = bool(cell.channels) and n >= MIN_COMPARTMENTS_PER_THREAD * self.threads

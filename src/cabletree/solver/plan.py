@@ -16,7 +16,7 @@ from ..cell import CellModel
 from ..errors import SolverError
 
 __all__ = ["METHODS", "RunSettings", "StepSchedule", "SolverState", "make_schedule",
-           "resting_state"]
+           "check_threads", "resting_state"]
 
 #: Time-stepping methods.  ``backward_euler``: first order, L-stable.
 #: ``crank_nicolson``: second order, gates staggered half a step from the voltage
@@ -263,6 +263,19 @@ def resting_state(cell: CellModel, v_init_mV: float) -> SolverState:
     syn = tuple(np.zeros((2, g.compartment.size)) for g in cell.synapses)
     return SolverState(0.0, np.full(n, float(v_init_mV)), tuple(gates), 0.0, syn,
                        tuple(b.channel.name for b in cell.channels))
+
+
+def check_threads(threads) -> int:
+    """The number of threads asked for, as an int.
+
+    Raises
+    ------
+    SolverError
+        Unless ``threads`` is a whole number >= 1 (a bool is refused).
+    """
+    if isinstance(threads, bool) or int(threads) != threads or threads < 1:
+        raise SolverError(f"threads must be an integer >= 1, got {threads!r}")
+    return int(threads)
 
 
 def check_state(cell: CellModel, state: SolverState) -> None:
