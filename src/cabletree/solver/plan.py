@@ -268,6 +268,15 @@ def resting_state(cell: CellModel, v_init_mV: float) -> SolverState:
 def check_threads(threads) -> int:
     """The number of threads asked for, as an int.
 
+    Parameters
+    ----------
+    threads : int
+        Threads for the compiled backend's gate loops (dimensionless count).
+
+    Returns
+    -------
+    int
+
     Raises
     ------
     SolverError
