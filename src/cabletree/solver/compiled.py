@@ -384,13 +384,15 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
     The function updates the block's entries ``k0 <= k < k1`` (all of them on one
     thread; with more threads, each thread calls it for the entries whose
     compartments lie in its own compartment range, so no two threads ever write
-    the same element of ``G`` or ``J``; each thread has its own rows of scratch
-    ``w0``, ``w1``, ``wf``, ``wi``).  A block on a contiguous run of compartments
-    is called with views of ``v``, ``G`` and ``J`` starting at its first
-    compartment and indexes them directly.
+    the same element of ``d`` or ``r``; each thread has its own rows of scratch
+    ``w0``, ``w1``, ``wf``, ``wi``).  The block's conductance is added to the
+    diagonal ``d`` of the step's tree system and its current to the right-hand
+    side ``r``.  A block on a contiguous run of compartments is called with views
+    of ``v``, ``d`` and ``r`` starting at its first compartment and indexes them
+    directly.
     Any other block first gathers ``v`` into a contiguous scratch array, runs the
     same loops writing its conductances to a second scratch array, and then adds
-    them to ``G`` and ``J`` through ``index``: a gather inside the rate loop keeps
+    them to ``d`` and ``r`` through ``index``: a gather inside the rate loop keeps
     it from vectorising.
 
     Each gate takes two loops: the first evaluates the rate functions and stores
@@ -411,7 +413,7 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
     npar = len(channel.parameter_names)
     lines = ["@numba.njit(**_JIT)",
              f"def block_{b}(v, index, k0, k1, x, par, gmax, erev, celsius, phi, "
-             "dt_gate, G, J, w0, w1, wf, wi, vg, gg, tb, tv):",
+             "dt_gate, d, r, w0, w1, wf, wi, vg, gg, tb, tv):",
              "    if k0 < 0:  # never; tells the compiler k >= 0 (no negative-index wraparound)",
              "        return",
              "    dts = dt_gate * phi"]
@@ -480,22 +482,39 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False) ->
         for _ in range(int(gate.power)):
             lines.append("        g = g * xj")
     if contiguous:
-        lines += ["        G[k] += g", "        J[k] += g * erev[k]", ""]
+        lines += ["        d[k] += g", "        r[k] += g * erev[k]", ""]
     else:
         lines += ["        gg[kk] = g",
                   "    for k in range(m):",
                   "        i = index[k0 + k]",
-                  "        G[i] += gg[k]",
-                  "        J[i] += gg[k] * erev[k0 + k]", ""]
+                  "        d[i] += gg[k]",
+                  "        r[i] += gg[k] * erev[k0 + k]", ""]
     return "\n".join(lines)
 
 
 _KERNEL_TEMPLATE = '''
+@numba.njit(**_JIT)
+def start_rows(v, d, r, refactor, rheff, cap, static_diag, leak_j):
+    # rows of the tree system: capacitive and static terms (leak, axial coupling)
+    if refactor:
+        for i in range(v.size):
+            c = cap[i] * rheff
+            d[i] = c + static_diag[i]
+            r[i] = c * v[i] + leak_j[i]
+    else:
+        for i in range(v.size):
+            r[i] = cap[i] * rheff * v[i] + leak_j[i]
+
+
 @numba.njit(**_JIT_PAR)
-def gates_and_currents(v, dt_gate, G, J, ws, wi, tp, celsius{block_params}):
+def gates_and_currents(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
+                       ws, wi, tp, celsius{block_params}):
     # one parallel region per call: thread t updates strips tp[t] <= s < tp[t + 1],
-    # each a short range of compartments in every block (sp<b>[s]:sp<b>[s + 1] are
-    # the block entries in strip s), with its own scratch rows ws[t], wi[t]
+    # compartments bounds[s] <= i < bounds[s + 1], each a short range of compartments
+    # in every block (sp<b>[s]:sp<b>[s + 1] are the block entries in strip s), with
+    # its own scratch rows ws[t], wi[t].  A strip's system rows start from the
+    # capacitive and static terms (leak and axial coupling), and its channels then
+    # add their conductances to the diagonal d and currents to the right-hand side r.
     for t in numba.prange(N_CHUNKS):
         w0 = ws[t, 0]
         w1 = ws[t, 1]
@@ -504,20 +523,31 @@ def gates_and_currents(v, dt_gate, G, J, ws, wi, tp, celsius{block_params}):
         gg = ws[t, 4]
         wit = wi[t]
         for s in range(tp[t], tp[t + 1]):
+            lo = bounds[s]
+            hi = bounds[s + 1]
+            start_rows(v[lo:hi], d[lo:hi], r[lo:hi], refactor, rheff, cap[lo:hi],
+                       static_diag[lo:hi], leak_j[lo:hi])
 {block_calls}
     return 0
 
 
 @numba.njit(**_JIT)
 def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
-            cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r, limit,
+            cap, static_diag, leak_j, offdiag, parent, d, r, limit,
             fixed_matrix, factor_rheff,
             inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
             sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
-            ws, wi, tp, celsius{block_params}):
+            ws, wi, tp, bounds, celsius{block_params}):
     n = v.size
-    # G and J hold the leak on entry (set by the caller, then reset below)
-    gates_and_currents(v, dt_gate, G, J, ws, wi, tp, celsius{block_args})
+    rheff = 2.0 / h if cn else 1.0 / h
+    # the matrix is the same as at the last factorisation (a cell without channels
+    # or synapses at the same step size): only the right-hand side is needed
+    refactor = not (fixed_matrix and rheff == factor_rheff[0])
+    # the tree system of the step: capacitive, static and channel terms (by strips),
+    # then synapses and injections, all added into the diagonal d and the
+    # right-hand side r
+    gates_and_currents(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
+                       ws, wi, tp, celsius{block_args})
     ns = sa.size
     if ns > 0:
         for s in range(ns):
@@ -563,28 +593,16 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
             c = syn_comp[s]
             if syn_mg[s] == syn_mg[s]:
                 g = g * (1.0 / (1.0 + (syn_mg[s] / 3.57) * np.exp(-0.062 * v[c])))
-            G[c] += g
-            J[c] += g * syn_rev[s]
+            d[c] += g
+            r[c] += g * syn_rev[s]
     for q in range(inj_comp.size):
-        J[inj_comp[q]] += inj_row[q]
-    rheff = 2.0 / h if cn else 1.0 / h
-    if fixed_matrix and rheff == factor_rheff[0]:
-        # the matrix is the same as at the last factorisation: eliminate the
-        # right-hand side only, with the stored reciprocal pivots (the multiplier
-        # offdiag[i] * d[i] is the product the factorisation used)
-        for i in range(n):
-            r[i] = cap[i] * rheff * v[i] + J[i]
-        for q in range(inj_comp.size):  # only these entries of J left the leak
-            J[inj_comp[q]] = leak_j[inj_comp[q]]
+        r[inj_comp[q]] += inj_row[q]
+    if not refactor:
+        # eliminate the right-hand side only, with the stored reciprocal pivots
+        # (the multiplier offdiag[i] * d[i] is the product the factorisation used)
         for i in range(n - 1, 0, -1):
             r[parent[i]] -= (offdiag[i] * d[i]) * r[i]
     else:
-        for i in range(n):
-            c = cap[i] * rheff
-            d[i] = c + G[i] + axial_diag[i]
-            r[i] = c * v[i] + J[i]
-            G[i] = leak_g[i]
-            J[i] = leak_j[i]
         # elimination; d[i] is final when i is reached, so its reciprocal replaces
         # it and the back-substitution multiplies instead of dividing again
         for i in range(n - 1, 0, -1):
@@ -614,14 +632,12 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
 
 @numba.njit(**_JIT_CACHE)
 def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matrix,
-        cap, leak_g, leak_j, axial_diag, offdiag, parent, v, records, record_index,
+        cap, static_diag, leak_j, offdiag, parent, v, records, record_index,
         inj_comp, inj_mid, inj_end,
         syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight, sa, sb,
         ea_full, eb_full, ea_half, eb_half, ev_ptr, ev_syn, ev_off, ev_first,
-        tp, max_strip, celsius{block_params}):
+        tp, bounds, max_strip, celsius{block_params}):
     n = v.size
-    G = leak_g.copy()
-    J = leak_j.copy()
     d = np.empty(n)
     r = np.empty(n)
     # scratch of the gate loops, rows of one strip per thread (indexed by entry
@@ -667,11 +683,11 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
             ea = ea_full if h == dt else ea_half
             eb = eb_full if h == dt else eb_half
             n_bad = substep(v, h, cn, dt_gate, inj_row, first_half, second_half, k, dt,
-                    cap, leak_g, leak_j, axial_diag, offdiag, parent, G, J, d, r,
+                    cap, static_diag, leak_j, offdiag, parent, d, r,
                     limit, fixed_matrix, factor_rheff,
                     inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                     sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
-                    ws, wi, tp, celsius{block_args})
+                    ws, wi, tp, bounds, celsius{block_args})
             lag = new_lag
         if n_bad > 0:
             bad = 0
@@ -697,11 +713,11 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple) -> str:
             view = f"idx{b}[0]:idx{b}[0] + gm{b}.size"
             calls.append(f"            if sp{b}[s] < sp{b}[s + 1]:\n"
                          f"                block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, "
-                         f"gm{b}, er{b}, celsius, phi{b}, dt_gate, G[{view}], J[{view}], w0, w1, "
+                         f"gm{b}, er{b}, celsius, phi{b}, dt_gate, d[{view}], r[{view}], w0, w1, "
                          f"wf, wit, vg, gg, tb{b}, tv{b})\n")
         else:
             calls.append(f"            block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
-                         f"celsius, phi{b}, dt_gate, G, J, w0, w1, wf, wit, vg, gg, tb{b}, "
+                         f"celsius, phi{b}, dt_gate, d, r, w0, w1, wf, wit, vg, gg, tb{b}, "
                          f"tv{b})\n")
     calls = "".join(calls)
     head = ("# generated by cabletree.solver.compiled; do not edit\n"
@@ -976,12 +992,14 @@ class CompiledStepper:
         order = self.order
         g = np.ascontiguousarray(cell.axial_conductance_uS[order], dtype=float)
         self.offdiag = -g
-        self.axial_diag = np.ascontiguousarray(cell.axial_diagonal_uS[order])
         parent = np.asarray(grid.parent, dtype=np.int64)[order]
         parent[1:] = self.position[parent[1:]]
         self.parent = np.ascontiguousarray(parent, dtype=np.int32)  # less memory traffic than int64
-        self.leak_g = np.ascontiguousarray(cell.leak_uS[order], dtype=float)
-        self.leak_j = self.leak_g * cell.leak_reversal_mV[order]
+        leak_g = np.ascontiguousarray(cell.leak_uS[order], dtype=float)
+        # the diagonal's terms that never change (leak and axial coupling), µS,
+        # and the leak's current, nA: each step's system starts from them
+        self.static_diag = leak_g + cell.axial_diagonal_uS[order]
+        self.leak_j = leak_g * cell.leak_reversal_mV[order]
         self.cap = np.ascontiguousarray(cell.capacitance_nF[order], dtype=float)
         self.channels = tuple(b.channel for b in cell.channels)
         # block entries sorted by kernel position; entry_order[b] maps them to the
@@ -995,6 +1013,7 @@ class CompiledStepper:
             positions.append(np.ascontiguousarray(pos[e]))
         bounds, self.thread_strips = _strip_bounds(n, list(zip(self.channels, positions)),
                                                    self.kernel_threads, STRIP_COMPARTMENTS)
+        self.strip_bounds = bounds
         self.max_strip = int(max(1, np.max(np.diff(bounds))))
         self.block_static = []
         for block, idx, e in zip(cell.channels, positions, self.entry_order):
@@ -1078,7 +1097,7 @@ class CompiledStepper:
                 np.ascontiguousarray(sched.smoothing, dtype=np.bool_),
                 float(settings.max_abs_v_mV), int(sched.record_every), float(state.gate_lag_ms),
                 self.fixed_matrix,
-                self.cap, self.leak_g, self.leak_j, self.axial_diag, self.offdiag, self.parent,
+                self.cap, self.static_diag, self.leak_j, self.offdiag, self.parent,
                 v, records, rec_idx,
                 np.ascontiguousarray(pos[np.asarray(sched.injection_compartment, dtype=np.int64)]),
                 inj_mid, inj_end,
@@ -1086,7 +1105,8 @@ class CompiledStepper:
                 syn["syn_rev"], syn["syn_mg"], syn["syn_weight"], sa, sb,
                 decay["ea_full"], decay["eb_full"], decay["ea_half"], decay["eb_half"],
                 syn["ev_ptr"], syn["ev_syn"], syn["ev_off"], syn["ev_first"],
-                self.thread_strips, self.max_strip, float(self.cell.celsius), *block_args)
+                self.thread_strips, self.strip_bounds, self.max_strip, float(self.cell.celsius),
+                *block_args)
         try:
             bad_step, bad_comp, n_rec, lag = kernel(*args)
         except numba.core.errors.NumbaError as exc:
