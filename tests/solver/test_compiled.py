@@ -501,3 +501,25 @@ def test_simulate_passes_threads_to_the_compiled_backend(monkeypatch):
     for backend in ("compiled", "reference"):
         with pytest.raises(SolverError, match="threads must be an integer >= 1, got 0"):
             simulate(cell, settings, backend=backend, threads=0)
+
+
+def test_uniform_values_read_once_and_varying_values_per_compartment():
+    # a block's reversal potential and named parameters are read as one scalar when
+    # they are uniform and per compartment when a profile makes them vary; both
+    # layouts must give the reference backend's answers (1e-9 relative)
+    from cabletree.solver import compiled
+    varying = ChannelPlacement(USER_CHANNEL, 0.01, Selector(path_distance_um=(20.0, np.inf)),
+                               reversal_mV=Linear(-85.0, 0.05),
+                               parameters={"v_half_mV": Linear(-40.0, 0.02)})
+    uniform = ChannelPlacement(USER_CHANNEL, 0.01, Selector(path_distance_um=(20.0, np.inf)))
+    for placement, expected in ((varying, (False, (False,))), (uniform, (True, (True,)))):
+        base = build_cell(_tree(), celsius=30.0, channels=[
+            ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, 0.036), placement])
+        cell = base.with_inputs(recording_sites=all_compartment_sites(base.grid), injections=[
+            CurrentInjection(soma_site(base.grid), StepCurrent(0.5, 1.0, 5.0))])
+        assert compiled.CompiledStepper(cell).uniform[2] == expected
+        assert compiled.CompiledStepper(cell).uniform[0] == (True, ())
+        ref, comp = _both(cell, RunSettings(8.0, 0.025))
+        assert np.ptp(ref.v_mV) > 50.0  # it spikes
+        _agree(ref.v_mV, comp.v_mV)
+        _agree(ref.final_state.gates[2], comp.final_state.gates[2])
