@@ -547,7 +547,7 @@ def gates_and_currents(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak
 
 @numba.njit(**_JIT)
 def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
-            cap, static_diag, leak_j, offdiag, parent, d, r, limit,
+            cap, static_diag, leak_j, offdiag, parent, d, r, mult, limit,
             fixed_matrix, factor_rheff,
             inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
             sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
@@ -612,10 +612,22 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
     for q in range(inj_comp.size):
         r[inj_comp[q]] += inj_row[q]
     if not refactor:
-        # eliminate the right-hand side only, with the stored reciprocal pivots
-        # (the multiplier offdiag[i] * d[i] is the product the factorisation used)
+        # eliminate the right-hand side only, with the multipliers the
+        # factorisation stored (one array read instead of two)
         for i in range(n - 1, 0, -1):
-            r[parent[i]] -= (offdiag[i] * d[i]) * r[i]
+            r[parent[i]] -= mult[i] * r[i]
+    elif fixed_matrix:
+        # as below, keeping the multipliers for the steps to come
+        for i in range(n - 1, 0, -1):
+            p = parent[i]
+            rd = 1.0 / d[i]
+            d[i] = rd
+            f = offdiag[i] * rd
+            mult[i] = f
+            d[p] -= f * offdiag[i]
+            r[p] -= f * r[i]
+        d[0] = 1.0 / d[0]
+        factor_rheff[0] = rheff
     else:
         # elimination; d[i] is final when i is reached, so its reciprocal replaces
         # it and the back-substitution multiplies instead of dividing again
@@ -627,7 +639,6 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
             d[p] -= f * offdiag[i]
             r[p] -= f * r[i]
         d[0] = 1.0 / d[0]
-        factor_rheff[0] = rheff
     # back-substitution from the root, with the new potential (Crank-Nicolson:
     # extrapolated from the half step) and the count of NaN or runaway values
     vo = r[0] * d[0]
@@ -660,6 +671,8 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
     ws = np.empty((N_CHUNKS, 5, max_strip))
     wi = np.empty((N_CHUNKS, max_strip), dtype=np.int32)
     factor_rheff = np.full(1, np.nan)  # h-factor of the stored factorisation (none yet)
+    # elimination multipliers of the stored factorisation (a fixed matrix only)
+    mult = np.empty(n if fixed_matrix else 0)
     sa_old = np.empty(sa.size)
     sb_old = np.empty(sa.size)
     lag = lag0
@@ -697,7 +710,7 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
             ea = ea_full if h == dt else ea_half
             eb = eb_full if h == dt else eb_half
             n_bad = substep(v, h, cn, dt_gate, inj_row, first_half, second_half, k, dt,
-                    cap, static_diag, leak_j, offdiag, parent, d, r,
+                    cap, static_diag, leak_j, offdiag, parent, d, r, mult,
                     limit, fixed_matrix, factor_rheff,
                     inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                     sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
