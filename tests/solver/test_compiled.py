@@ -361,8 +361,12 @@ def test_two_threads_agree_with_one_thread_and_reference(monkeypatch):
                                                          StepCurrent(0.5, 1.0, 6.0))])
     assert any(not (b.index[-1] - b.index[0] + 1 == b.index.size) for b in cell.channels)
     two = CompiledStepper(cell, threads=2)
-    # some non-contiguous block is shared between the two chunks
-    assert any(not contig and 0 < split[1] < split[2]
+    # the tree is split into a top and a part per thread (each thread eliminates and
+    # back-substitutes its own part), and some non-contiguous block has entries in
+    # the strips of both threads
+    assert two.n_parts == 2 and two.part_bounds[0] < cell.n_compartments // 4
+    tp = two.thread_strips
+    assert any(not contig and 0 < split[tp[1]] < split[tp[2]]
                for _, split, contig, *_ in two.block_static)
     settings = RunSettings(8.0, 0.025)
     idx = np.arange(cell.n_compartments)
@@ -460,7 +464,9 @@ def test_many_strips_agree_with_reference(monkeypatch, threads, table_step_mV):
                                                          StepCurrent(0.5, 1.0, 6.0))])
     stepper = compiled.CompiledStepper(cell, threads=threads)
     assert stepper.thread_strips[-1] >= 4 and stepper.max_strip <= 16
-    assert any(not contig for _, _, contig, *_ in stepper.block_static)
+    # some block lies in several runs of compartments: per-strip views (a run per
+    # strip) or gathers (several runs in one strip)
+    assert any(idx[-1] - idx[0] + 1 != idx.size for idx, *_ in stepper.block_static)
     settings = RunSettings(6.0, 0.025, rate_table_step_mV=table_step_mV)
     idx = np.arange(cell.n_compartments)
     state = resting_state(cell, -65.0)
@@ -523,3 +529,64 @@ def test_uniform_values_read_once_and_varying_values_per_compartment():
         assert np.ptp(ref.v_mV) > 50.0  # it spikes
         _agree(ref.v_mV, comp.v_mV)
         _agree(ref.final_state.gates[2], comp.final_state.gates[2])
+
+
+def test_split_tree_parts_are_whole_subtrees_of_about_equal_work():
+    # reference: the definition of the split (every compartment of a part hangs from
+    # its own part or from the top; the top holds the root) and the balance rule
+    # (the longest-processing-time deal, Graham 1969, within SPLIT_IMBALANCE_LIMIT)
+    from cabletree.solver.compiled import SPLIT_IMBALANCE_LIMIT, split_tree
+    cell = build_cell(synthetic.random_tree(300, seed=5, samples_per_branch=3))
+    parent = np.asarray(cell.grid.parent, dtype=np.int64)
+    n = parent.size
+    work = np.random.default_rng(1).uniform(1.0, 6.0, n)
+    for n_parts in (2, 3):
+        part = split_tree(parent, work, n_parts)
+        assert part is not None and part[0] == -1
+        child = np.arange(1, n)
+        top_parent = part[parent[child]] == -1
+        assert np.all((part[child] == part[parent[child]]) | top_parent)
+        loads = np.array([work[part == t].sum() for t in range(n_parts)])
+        loads[0] += work[part == -1].sum()  # thread 0 also updates the top
+        assert loads.max() <= SPLIT_IMBALANCE_LIMIT * work.sum() / n_parts
+        assert np.sum(part == -1) <= max(16, n // 50)
+    # an unbranched cable cannot be dealt into parts with a small top
+    chain = np.arange(-1, 199)
+    assert split_tree(chain, np.ones(200), 2, max_top=8) is None
+
+
+def test_split_tree_threads_with_synapses_and_injections_agree_with_reference(monkeypatch):
+    # reference: the numpy backend.  With two threads the tree is split; synapses and
+    # current injections sit in the top and in both parts, each added by the thread
+    # that owns its compartment before that thread eliminates its part
+    from cabletree.solver import compiled
+    monkeypatch.setattr(compiled, "MIN_COMPARTMENTS_PER_THREAD", 1)
+    base = build_cell(synthetic.random_tree(40, seed=6, samples_per_branch=3),
+                      membrane=Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-54.387),
+                      channels=[ChannelPlacement(hh_sodium, 0.12),
+                                ChannelPlacement(hh_potassium, 0.036)])
+    stepper = compiled.CompiledStepper(base, threads=2)
+    assert stepper.n_parts == 2
+    top_end, part0_end, n = (int(x) for x in stepper.part_bounds)
+    # one compartment in the top and one in each part (grid numbers)
+    chosen = [int(stepper.order[p]) for p in (0, (top_end + part0_end) // 2, (part0_end + n) // 2)]
+    sites = [Site(f"s{q}", c) for q, c in enumerate(chosen)]
+    groups = [
+        SynapseGroup.from_synapses(AMPA, sites, [4.0, 3.0, 3.0],
+                                   [explicit_events([0.51, 2.0]), explicit_events([1.0051]),
+                                    explicit_events([1.5, 4.0])]),
+        SynapseGroup.from_synapses(NMDA, sites[1:], [5.0, 5.0],
+                                   [explicit_events([0.7]), explicit_events([2.2])]),
+    ]
+    injections = [CurrentInjection(s, StepCurrent(0.05 * (q + 1), 1.0 + q, 2.0))
+                  for q, s in enumerate(sites)]
+    cell = base.with_inputs(recording_sites=all_compartment_sites(base.grid), synapses=groups,
+                            injections=injections)
+    for method in ("crank_nicolson", "backward_euler"):
+        settings = RunSettings(8.0, 0.025, method=method)
+        ref = simulate(cell, settings, backend="reference")
+        two = simulate(cell, settings, backend="compiled", threads=2)
+        assert ref.v_mV.max() > 0.0  # spikes
+        _agree(ref.v_mV, two.v_mV)
+        for sr, st in zip(ref.final_state.synapse_states, two.final_state.synapse_states):
+            _agree(sr, st)

@@ -59,12 +59,17 @@ records to and from the grid's order.
 Strips and threads: each thread updates its compartments in strips of at most
 :data:`STRIP_COMPARTMENTS`, every channel block in turn, so the gate loops'
 scratch rows stay in cache (HH + A-type at N = 1e5 1.1x faster; neutral at
-1e4).  ``CompiledStepper(cell, threads=2)`` splits the compartments into two
-ranges of about equal gate work and updates every channel block of one range on
-one thread, in a single ``numba.prange`` region per step (no two threads write
-the same compartment; the tree solve stays serial: splitting it between the
-threads measured no faster); off by default because sweeps parallelise over
-runs instead.
+1e4).  ``CompiledStepper(cell, threads=2)`` splits the tree (:func:`split_tree`)
+into a small top holding the root and one part per thread, each a union of whole
+subtrees of about equal work.  In one ``numba.prange`` region per step each
+thread updates its part's gates (thread 0 also the top's), adds its synapse and
+injection terms and eliminates its part, sending what the part gives the top to
+its own slots; the top is eliminated and back-substituted serially, and a second
+region back-substitutes the parts.  Every thread thus works on its own data
+(with a serial solve, moving the system's halves between the cores cost about a
+tenth of a step at N = 1e4; benchmarks/README.md).  If no even split with a small top exists (an
+unbranched cable), the tree solve stays serial.  Off by default because sweeps
+parallelise over runs instead.
 """
 
 from __future__ import annotations
@@ -388,9 +393,9 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False,
     the same element of ``d`` or ``r``; each thread has its own rows of scratch
     ``w0``, ``w1``, ``wf``, ``wi``).  The block's conductance is added to the
     diagonal ``d`` of the step's tree system and its current to the right-hand
-    side ``r``.  A block on a contiguous run of compartments is called with views
-    of ``v``, ``d`` and ``r`` starting at its first compartment and indexes them
-    directly.
+    side ``r``.  A block whose entries in every strip form one run of
+    compartments is called, for each strip, with views of ``v``, ``d`` and ``r``
+    offset so that the strip's entries index them directly.
     Any other block first gathers ``v`` into a contiguous scratch array, runs the
     same loops writing its conductances to a second scratch array, and then adds
     them to ``d`` and ``r`` through ``index``: a gather inside the rate loop keeps
@@ -520,48 +525,132 @@ def start_rows(v, d, r, refactor, rheff, cap, static_diag, leak_j):
             r[i] = cap[i] * rheff * v[i] + leak_j[i]
 
 
+@numba.njit(**_JIT)
+def thread_strips(t, v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
+                  ws, wi, tp, celsius{block_params}):
+    # thread t updates strips tp[t] <= s < tp[t + 1], compartments bounds[s] <= i <
+    # bounds[s + 1], each a short range of compartments in every block (sp<b>[s]:sp<b>[s + 1]
+    # are the block entries in strip s), with its own scratch rows ws[t], wi[t].  A strip's
+    # system rows start from the capacitive and static terms (leak and axial coupling), and
+    # its channels then add their conductances to the diagonal d and currents to the
+    # right-hand side r.
+    w0 = ws[t, 0]
+    w1 = ws[t, 1]
+    wf = ws[t, 2]
+    vg = ws[t, 3]
+    gg = ws[t, 4]
+    wit = wi[t]
+    for s in range(tp[t], tp[t + 1]):
+        lo = bounds[s]
+        hi = bounds[s + 1]
+        start_rows(v[lo:hi], d[lo:hi], r[lo:hi], refactor, rheff, cap[lo:hi],
+                   static_diag[lo:hi], leak_j[lo:hi])
+{block_calls}
+
+
 @numba.njit(**_JIT_PAR)
 def gates_and_currents(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
                        ws, wi, tp, celsius{block_params}):
-    # one parallel region per call: thread t updates strips tp[t] <= s < tp[t + 1],
-    # compartments bounds[s] <= i < bounds[s + 1], each a short range of compartments
-    # in every block (sp<b>[s]:sp<b>[s + 1] are the block entries in strip s), with
-    # its own scratch rows ws[t], wi[t].  A strip's system rows start from the
-    # capacitive and static terms (leak and axial coupling), and its channels then
-    # add their conductances to the diagonal d and currents to the right-hand side r.
+    # one parallel region: every thread its own strips
     for t in numba.prange(N_CHUNKS):
-        w0 = ws[t, 0]
-        w1 = ws[t, 1]
-        wf = ws[t, 2]
-        vg = ws[t, 3]
-        gg = ws[t, 4]
-        wit = wi[t]
-        for s in range(tp[t], tp[t + 1]):
-            lo = bounds[s]
-            hi = bounds[s + 1]
-            start_rows(v[lo:hi], d[lo:hi], r[lo:hi], refactor, rheff, cap[lo:hi],
-                       static_diag[lo:hi], leak_j[lo:hi])
-{block_calls}
+        thread_strips(t, v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
+                      ws, wi, tp, celsius{block_args})
+    return 0
+
+
+@numba.njit(**_JIT_PAR)
+def gates_and_parts(v, dt_gate, d, r, rheff, cap, static_diag, leak_j, bounds, ws, wi, tp,
+                    celsius, part_bounds, eparent, offdiag, slot_stride,
+                    syn_comp, syn_g, syn_j, syn_thread_ptr, syn_by_thread,
+                    inj_comp, inj_row, inj_thread_ptr, inj_by_thread{block_params}):
+    # a tree split into a top and one part per thread (split_tree): in one parallel
+    # region, thread t updates its strips, adds the terms of the synapses and
+    # injections on its compartments and eliminates its part from the leaves up;
+    # what a part gives a top compartment goes to the thread's own slots beyond the
+    # compartments (d[n + t * slot_stride + p]), added up serially afterwards
+    n = v.size
+    for t in numba.prange(N_CHUNKS):
+        thread_strips(t, v, dt_gate, d, r, True, rheff, cap, static_diag, leak_j, bounds,
+                      ws, wi, tp, celsius{block_args})
+        for q in range(syn_thread_ptr[t], syn_thread_ptr[t + 1]):
+            s = syn_by_thread[q]
+            c = syn_comp[s]
+            d[c] += syn_g[s]
+            r[c] += syn_j[s]
+        for q in range(inj_thread_ptr[t], inj_thread_ptr[t + 1]):
+            k = inj_by_thread[q]
+            r[inj_comp[k]] += inj_row[k]
+        base = n + t * slot_stride
+        for k in range(base, base + slot_stride):
+            d[k] = 0.0
+            r[k] = 0.0
+        eliminate_part(part_bounds[t], part_bounds[t + 1], offdiag, eparent, d, r)
     return 0
 
 
 @numba.njit(**_JIT)
-def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
-            cap, static_diag, leak_j, offdiag, parent, d, r, mult, limit,
-            fixed_matrix, factor_rheff,
-            inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
-            sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
-            ws, wi, tp, bounds, celsius{block_params}):
-    n = v.size
-    rheff = 2.0 / h if cn else 1.0 / h
-    # the matrix is the same as at the last factorisation (a cell without channels
-    # or synapses at the same step size): only the right-hand side is needed
-    refactor = not (fixed_matrix and rheff == factor_rheff[0])
-    # the tree system of the step: capacitive, static and channel terms (by strips),
-    # then synapses and injections, all added into the diagonal d and the
-    # right-hand side r
-    gates_and_currents(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
-                       ws, wi, tp, celsius{block_args})
+def eliminate_part(lo, hi, offdiag, parent, d, r):
+    # Gaussian elimination of compartments hi - 1 down to lo (leaves first) into their
+    # parents; d[i] is final when i is reached, so its reciprocal replaces it and the
+    # back-substitution multiplies instead of dividing again
+    for i in range(hi - 1, lo - 1, -1):
+        p = parent[i]
+        rd = 1.0 / d[i]
+        d[i] = rd
+        f = offdiag[i] * rd
+        d[p] -= f * offdiag[i]
+        r[p] -= f * r[i]
+
+
+@numba.njit(**_JIT)
+def eliminate(lo, hi, offdiag, parent, d, r):
+    # elimination of compartments lo <= i < hi (lo >= 1) and then of the root
+    eliminate_part(lo, hi, offdiag, parent, d, r)
+    d[0] = 1.0 / d[0]
+
+
+@numba.njit(**_JIT)
+def back_substitute_root(v, cn, d, r, limit):
+    # the root's new potential (see back_substitute); 1 if it is NaN or runaway
+    vo = r[0] * d[0]
+    r[0] = vo
+    vn = 2.0 * vo - v[0] if cn else vo
+    v[0] = vn
+    return 0 if abs(vn) <= limit else 1
+
+
+@numba.njit(**_JIT)
+def back_substitute(lo, hi, v, cn, offdiag, parent, d, r, limit):
+    # back-substitution of compartments lo <= i < hi, whose parents are done, with the
+    # new potential (Crank-Nicolson: extrapolated from the half step); returns the
+    # count of NaN or runaway values.  r[i] is spent once v_out(i) is known: it holds
+    # v_out from here on
+    n_bad = 0
+    for i in range(lo, hi):
+        vo = (r[i] - offdiag[i] * r[parent[i]]) * d[i]
+        r[i] = vo
+        vn = 2.0 * vo - v[i] if cn else vo
+        v[i] = vn
+        n_bad += 0 if abs(vn) <= limit else 1  # NaN counts as bad
+    return n_bad
+
+
+@numba.njit(**_JIT_PAR)
+def back_parts(v, cn, part_bounds, offdiag, parent, d, r, limit, n_bad):
+    # back-substitution of the parts of a split tree, one thread each (the top is done)
+    for t in numba.prange(N_CHUNKS):
+        n_bad[8 * t] = back_substitute(part_bounds[t], part_bounds[t + 1], v, cn, offdiag,
+                                       parent, d, r, limit)
+    return 0
+
+
+@numba.njit(**_JIT)
+def synapse_terms(v, h, cn, first_half, second_half, step, dt,
+                  syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
+                  sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
+                  syn_g, syn_j):
+    # advance every synapse's state over h (adding the events of this step's
+    # selected halves) and give its conductance syn_g (µS) and current term syn_j
     ns = sa.size
     if ns > 0:
         for s in range(ns):
@@ -607,8 +696,56 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
             c = syn_comp[s]
             if syn_mg[s] == syn_mg[s]:
                 g = g * (1.0 / (1.0 + (syn_mg[s] / 3.57) * np.exp(-0.062 * v[c])))
-            d[c] += g
-            r[c] += g * syn_rev[s]
+            syn_g[s] = g
+            syn_j[s] = g * syn_rev[s]
+
+
+@numba.njit(**_JIT)
+def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
+            cap, static_diag, leak_j, offdiag, parent, d, r, mult, limit,
+            fixed_matrix, factor_rheff,
+            inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
+            sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first, syn_g, syn_j,
+            n_parts, part_bounds, eparent, slot_stride, syn_thread_ptr, syn_by_thread,
+            inj_thread_ptr, inj_by_thread, n_bad_t,
+            ws, wi, tp, bounds, celsius{block_params}):
+    n = v.size
+    rheff = 2.0 / h if cn else 1.0 / h
+    synapse_terms(v, h, cn, first_half, second_half, step, dt,
+                  syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
+                  sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
+                  syn_g, syn_j)
+    if n_parts > 1:
+        # a split tree (threads only; never a fixed matrix): gates, synapse and
+        # injection terms and the parts' elimination in one parallel region
+        gates_and_parts(v, dt_gate, d, r, rheff, cap, static_diag, leak_j, bounds, ws, wi, tp,
+                        celsius, part_bounds, eparent, offdiag, slot_stride,
+                        syn_comp, syn_g, syn_j, syn_thread_ptr, syn_by_thread,
+                        inj_comp, inj_row, inj_thread_ptr, inj_by_thread{block_args})
+        m = part_bounds[0]
+        for t in range(n_parts):
+            base = n + t * slot_stride
+            for p in range(m):
+                d[p] += d[base + p]
+                r[p] += r[base + p]
+        eliminate(1, m, offdiag, parent, d, r)
+        n_bad = back_substitute_root(v, cn, d, r, limit)
+        n_bad += back_substitute(1, m, v, cn, offdiag, parent, d, r, limit)
+        back_parts(v, cn, part_bounds, offdiag, parent, d, r, limit, n_bad_t)
+        for t in range(n_parts):
+            n_bad += n_bad_t[8 * t]
+        return n_bad
+    # the matrix is the same as at the last factorisation (a cell without channels
+    # or synapses at the same step size): only the right-hand side is needed
+    refactor = not (fixed_matrix and rheff == factor_rheff[0])
+    # the tree system of the step: capacitive, static and channel terms (by strips),
+    # then synapses and injections, all added into the diagonal d and the
+    # right-hand side r
+    gates_and_currents(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
+                       ws, wi, tp, celsius{block_args})
+    for s in range(sa.size):
+        d[syn_comp[s]] += syn_g[s]
+        r[syn_comp[s]] += syn_j[s]
     for q in range(inj_comp.size):
         r[inj_comp[q]] += inj_row[q]
     if not refactor:
@@ -629,30 +766,9 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
         d[0] = 1.0 / d[0]
         factor_rheff[0] = rheff
     else:
-        # elimination; d[i] is final when i is reached, so its reciprocal replaces
-        # it and the back-substitution multiplies instead of dividing again
-        for i in range(n - 1, 0, -1):
-            p = parent[i]
-            rd = 1.0 / d[i]
-            d[i] = rd
-            f = offdiag[i] * rd
-            d[p] -= f * offdiag[i]
-            r[p] -= f * r[i]
-        d[0] = 1.0 / d[0]
-    # back-substitution from the root, with the new potential (Crank-Nicolson:
-    # extrapolated from the half step) and the count of NaN or runaway values
-    vo = r[0] * d[0]
-    r[0] = vo  # r[i] is spent once v_out(i) is known: it holds v_out from here on
-    vn = 2.0 * vo - v[0] if cn else vo
-    v[0] = vn
-    n_bad = 0 if abs(vn) <= limit else 1  # NaN counts as bad
-    for i in range(1, n):
-        vo = (r[i] - offdiag[i] * r[parent[i]]) * d[i]
-        r[i] = vo
-        vn = 2.0 * vo - v[i] if cn else vo
-        v[i] = vn
-        n_bad += 0 if abs(vn) <= limit else 1
-    return n_bad
+        eliminate(1, n, offdiag, parent, d, r)
+    return back_substitute_root(v, cn, d, r, limit) + back_substitute(1, n, v, cn, offdiag,
+                                                                      parent, d, r, limit)
 
 
 @numba.njit(**_JIT_CACHE)
@@ -661,10 +777,17 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
         inj_comp, inj_mid, inj_end,
         syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight, sa, sb,
         ea_full, eb_full, ea_half, eb_half, ev_ptr, ev_syn, ev_off, ev_first,
-        tp, bounds, max_strip, celsius{block_params}):
+        n_parts, part_bounds, eparent, slot_stride, syn_thread_ptr, syn_by_thread,
+        inj_thread_ptr, inj_by_thread, tp, bounds, max_strip, celsius{block_params}):
     n = v.size
-    d = np.empty(n)
-    r = np.empty(n)
+    # the tree system's diagonal and right-hand side; with a split tree, followed by
+    # each thread's slots for what its part gives the top
+    n_slots = n_parts * slot_stride if n_parts > 1 else 0
+    d = np.empty(n + n_slots)
+    r = np.empty(n + n_slots)
+    n_bad_t = np.zeros(8 * n_parts, dtype=np.int64)  # one cache line per thread
+    syn_g = np.empty(sa.size)
+    syn_j = np.empty(sa.size)
     # scratch of the gate loops, rows of one strip per thread (indexed by entry
     # within the strip): steady states, exponents, table fractions, gathered
     # potentials and conductances of non-contiguous blocks; table grid cells
@@ -713,7 +836,9 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
                     cap, static_diag, leak_j, offdiag, parent, d, r, mult,
                     limit, fixed_matrix, factor_rheff,
                     inj_comp, syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
-                    sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first,
+                    sa, sb, sa_old, sb_old, ea, eb, ev_ptr, ev_syn, ev_off, ev_first, syn_g, syn_j,
+                    n_parts, part_bounds, eparent, slot_stride, syn_thread_ptr, syn_by_thread,
+                    inj_thread_ptr, inj_by_thread, n_bad_t,
                     ws, wi, tp, bounds, celsius{block_args})
             lag = new_lag
         if n_bad > 0:
@@ -737,13 +862,14 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple, uniform
     for b, c in enumerate(contiguous):
         rng = f"sp{b}[s], sp{b}[s + 1]"
         if c:
-            view = f"idx{b}[0]:idx{b}[0] + gm{b}.size"
-            calls.append(f"            if sp{b}[s] < sp{b}[s + 1]:\n"
-                         f"                block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, "
+            # the strip's entries k0 <= k < k1 sit at compartments o + k
+            view = f"idx{b}[sp{b}[s]] - sp{b}[s]:idx{b}[sp{b}[s]] - sp{b}[s] + sp{b}[s + 1]"
+            calls.append(f"        if sp{b}[s] < sp{b}[s + 1]:\n"
+                         f"            block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, "
                          f"gm{b}, er{b}, celsius, phi{b}, dt_gate, d[{view}], r[{view}], w0, w1, "
                          f"wf, wit, vg, gg, tb{b}, tv{b})\n")
         else:
-            calls.append(f"            block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
+            calls.append(f"        block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
                          f"celsius, phi{b}, dt_gate, d, r, w0, w1, wf, wit, vg, gg, tb{b}, "
                          f"tv{b})\n")
     calls = "".join(calls)
@@ -752,7 +878,7 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple, uniform
     blocks = "\n".join(_block_source(b, ch, c, tab, u) for b, (ch, c, tab, u)
                         in enumerate(zip(channels, contiguous, tabulated, uniform)))
     return (head + blocks + _KERNEL_TEMPLATE.format(block_params=params, block_args=params,
-                                                    block_calls=calls or "            pass\n"))
+                                                    block_calls=calls or "        pass\n"))
 
 
 _KERNELS: dict = {}
@@ -868,7 +994,7 @@ def _flat_synapses(cell: CellModel, sched: StepSchedule, position: np.ndarray):
                 ev_first=cat(ev_first, np.bool_)[order])
 
 
-def kernel_order(parent: np.ndarray, block_indices) -> np.ndarray:
+def kernel_order(parent: np.ndarray, block_indices, part: np.ndarray | None = None) -> np.ndarray:
     """The compartment order of the kernel: channel blocks in contiguous runs.
 
     A channel block whose compartments are contiguous is updated through views
@@ -883,30 +1009,50 @@ def kernel_order(parent: np.ndarray, block_indices) -> np.ndarray:
     be ordered parents first (a block set that recurs further out along a path),
     the grid order is kept.
 
+    With ``part`` (from :func:`split_tree`) the top of the tree comes first and
+    then each part in turn, each ordered as above within itself.
+
     Parameters
     ----------
     parent : ndarray of int64, shape (n,)
         Parent of each compartment in grid order, -1 for the root; ``parent[i] < i``.
     block_indices : sequence of ndarray of int64
         Compartments (grid order, increasing) of each channel block.
+    part : ndarray of int64, shape (n,), optional
+        Part of each compartment, -1 for the top.
 
     Returns
     -------
     ndarray of int64, shape (n,)
         ``order[i]`` is the grid compartment at kernel position ``i``; ``order[0] == 0``.
     """
+    parent = np.asarray(parent, dtype=np.int64)
     n = parent.size
     member = np.zeros((n, len(block_indices)), dtype=bool)
     for b, idx in enumerate(block_indices):
         member[idx, b] = True
-    signatures, group = np.unique(member, axis=0, return_inverse=True)
+    if part is None:
+        return _grouped_order(parent, member, np.arange(n, dtype=np.int64))
+    pieces = [_grouped_order(parent, member, np.flatnonzero(part == t))
+              for t in range(-1, int(part.max()) + 1)]
+    return np.concatenate(pieces).astype(np.int64)
+
+
+def _grouped_order(parent: np.ndarray, member: np.ndarray, subset: np.ndarray) -> np.ndarray:
+    """``subset`` (increasing grid compartments, each one's parent in it or not at
+    all) reordered by block-membership groups, parents first (see :func:`kernel_order`)."""
+    local = np.full(parent.size, -1, dtype=np.int64)
+    local[subset] = np.arange(subset.size)
+    above = parent[subset]
+    local_parent = np.where(above >= 0, local[np.maximum(above, 0)], -1)
+    signatures, group = np.unique(member[subset], axis=0, return_inverse=True)
     group = group.reshape(-1)
     n_groups = signatures.shape[0]
-    if n_groups == 1:
-        return np.arange(n, dtype=np.int64)
-    child = np.arange(1, n)
-    cross = group[parent[1:]] != group[child]
-    edges = set(zip(group[parent[1:]][cross].tolist(), group[child][cross].tolist()))
+    if n_groups <= 1:
+        return subset
+    child = np.flatnonzero(local_parent >= 0)
+    cross = group[local_parent[child]] != group[child]
+    edges = set(zip(group[local_parent[child]][cross].tolist(), group[child][cross].tolist()))
     indegree = np.zeros(n_groups, dtype=np.int64)
     successors: dict = {g: [] for g in range(n_groups)}
     for a, b in edges:
@@ -919,7 +1065,7 @@ def kernel_order(parent: np.ndarray, block_indices) -> np.ndarray:
         # most blocks shared with the group just placed; then the lowest group number
         pick = max(ready, key=lambda g: (int(np.sum(signatures[g] & last)), -g))
         if not placed and group[0] in ready:
-            pick = int(group[0])  # the root's group first
+            pick = int(group[0])  # the first compartment's group (the root's) first
         ready.remove(pick)
         placed.append(pick)
         for b in successors[pick]:
@@ -927,10 +1073,89 @@ def kernel_order(parent: np.ndarray, block_indices) -> np.ndarray:
             if indegree[b] == 0:
                 ready.append(b)
     if len(placed) < n_groups or placed[0] != group[0]:
-        return np.arange(n, dtype=np.int64)
+        return subset
     rank = np.empty(n_groups, dtype=np.int64)
     rank[np.asarray(placed)] = np.arange(n_groups)
-    return np.argsort(rank[group], kind="stable").astype(np.int64)
+    return subset[np.argsort(rank[group], kind="stable")]
+
+
+#: Largest share of the step's work a thread may get when the tree is split for the
+#: solve, relative to an even share (see :func:`split_tree`).
+SPLIT_IMBALANCE_LIMIT = 1.05
+
+
+def split_tree(parent: np.ndarray, work: np.ndarray, n_parts: int,
+               max_top: int | None = None) -> np.ndarray | None:
+    """Split a tree into a small top (with the root) and ``n_parts`` parts of about equal work.
+
+    Every part is a union of whole subtrees hanging from the top, so each thread can
+    update, eliminate and back-substitute its own part with its own data, and only
+    the top is solved serially.  Greedy: the subtrees hanging from the top are dealt
+    to the parts heaviest first, each to the part with the least work so far (the
+    longest-processing-time rule, Graham 1969, SIAM J Appl Math 17:416-429; the top's
+    own work counts towards part 0, whose thread also updates it); while the most
+    loaded part exceeds ``SPLIT_IMBALANCE_LIMIT`` times an even share, the heaviest
+    subtree's root moves into the top.
+
+    Parameters
+    ----------
+    parent : ndarray of int64, shape (n,)
+        Parent of each compartment (grid order, ``parent[i] < i``), -1 for the root.
+    work : ndarray, shape (n,)
+        Relative cost of each compartment per step.
+    n_parts : int
+        Number of parts (threads), at least 2.
+    max_top : int, optional
+        Most compartments the top may hold (default ``max(16, n // 50)``).
+
+    Returns
+    -------
+    ndarray of int64, shape (n,), or None
+        Part of each compartment (-1 for the top), or None if no split within the
+        limits exists.
+    """
+    parent = np.asarray(parent, dtype=np.int64)
+    n = parent.size
+    max_top = max(16, n // 50) if max_top is None else max_top
+    subtree = np.asarray(work, dtype=float).copy()
+    par = parent.tolist()
+    acc = subtree.tolist()
+    for i in range(n - 1, 0, -1):
+        acc[par[i]] += acc[i]
+    subtree = np.asarray(acc)
+    children_sorted = np.argsort(parent[1:], kind="stable") + 1
+    first = np.searchsorted(parent[children_sorted], np.arange(n + 1), side="left")
+    even = subtree[0] / n_parts
+    top = [0]
+    hanging = list(children_sorted[first[0]:first[1]].tolist())
+    while True:
+        hanging.sort(key=lambda c: -subtree[c])
+        loads = np.zeros(n_parts)
+        loads[0] = subtree[0] - sum(subtree[c] for c in hanging)  # the top's own work
+        assign = {}
+        for c in hanging:
+            t = int(np.argmin(loads))
+            loads[t] += subtree[c]
+            assign[c] = t
+        if loads.max() <= SPLIT_IMBALANCE_LIMIT * even:
+            break
+        if not hanging or len(top) >= max_top:
+            return None
+        c = hanging.pop(0)  # the heaviest subtree's root joins the top
+        top.append(c)
+        hanging += children_sorted[first[c]:first[c + 1]].tolist()
+    part = np.full(n, -2, dtype=np.int64)
+    part[np.asarray(top)] = -1
+    for c, t in assign.items():
+        part[c] = t
+    labels = part.tolist()
+    for i in range(1, n):
+        if labels[i] == -2:
+            labels[i] = labels[par[i]]
+    part = np.asarray(labels, dtype=np.int64)
+    if any(not np.any(part == t) for t in range(n_parts)):
+        return None
+    return part
 
 
 #: Compartments per strip of the gate loops: each thread updates its range strip by
@@ -939,12 +1164,12 @@ def kernel_order(parent: np.ndarray, block_indices) -> np.ndarray:
 STRIP_COMPARTMENTS = 4096
 
 
-def _strip_bounds(n: int, blocks, n_threads: int, strip: int):
+def _strip_bounds(cuts, owners, strip: int):
     """Strips of the gate loops: boundaries, and the strips of each thread.
 
-    The compartments are split into ``n_threads`` ranges of about equal gate work
-    (:func:`_chunk_bounds`), and each range into strips of at most ``strip``
-    compartments.
+    Piece ``j`` of the compartments, ``cuts[j] <= i < cuts[j + 1]``, is updated by
+    thread ``owners[j]`` (non-decreasing), in strips of at most ``strip``
+    compartments that never cross a cut.
 
     Returns
     -------
@@ -954,28 +1179,33 @@ def _strip_bounds(n: int, blocks, n_threads: int, strip: int):
     thread_strips : ndarray of int64, shape (n_threads + 1,)
         Thread ``t`` updates strips ``thread_strips[t] <= s < thread_strips[t + 1]``.
     """
-    ranges = _chunk_bounds(n, blocks, n_threads)
     bounds = [0]
     thread_strips = [0]
-    for a, b in zip(ranges[:-1], ranges[1:]):
+    for j, (a, b) in enumerate(zip(cuts[:-1], cuts[1:])):
         k = max(1, -(-(int(b) - int(a)) // strip))
         bounds += [int(a) + (q * (int(b) - int(a))) // k for q in range(1, k)] + [int(b)]
-        thread_strips.append(len(bounds) - 1)
+        if j + 1 == len(owners) or owners[j + 1] != owners[j]:
+            thread_strips.append(len(bounds) - 1)
     return np.asarray(bounds, dtype=np.int64), np.asarray(thread_strips, dtype=np.int64)
 
 
-def _chunk_bounds(n: int, blocks, n_chunks: int) -> np.ndarray:
-    """Compartment boundaries splitting the gate work into ``n_chunks`` ranges.
+def _compartment_work(n: int, blocks) -> np.ndarray:
+    """Relative cost of each compartment per step: 1 (the tree solve) plus, for every
+    channel block on it (``blocks``: (channel, compartments) pairs), its number of
+    gates plus one (the conductance)."""
+    work = np.ones(n)
+    for channel, compartments in blocks:
+        work[compartments] += len(channel.gates) + 1
+    return work
 
-    ``blocks`` holds (channel, kernel positions) of every channel block.  Each
-    compartment is weighted by the number of gates (plus one per channel for the
-    conductance) it carries, and the ranges hold about equal total weight.
+
+def _chunk_bounds(n: int, blocks, n_chunks: int) -> np.ndarray:
+    """Compartment boundaries splitting the work (:func:`_compartment_work`; ``blocks``
+    in kernel positions) into ``n_chunks`` ranges of about equal total.
+
     Returns ``n_chunks + 1`` increasing kernel positions from 0 to N.
     """
-    work = np.ones(n)
-    for channel, positions in blocks:
-        work[positions] += len(channel.gates) + 1
-    cum = np.cumsum(work)
+    cum = np.cumsum(_compartment_work(n, blocks))
     inner = np.searchsorted(cum, cum[-1] * np.arange(1, n_chunks) / n_chunks)
     return np.concatenate([[0], inner, [n]]).astype(np.int64)
 
@@ -998,9 +1228,11 @@ class CompiledStepper:
     ----------
     cell : CellModel
     threads : int
-        1 (default) runs serially; 2 or more split the gate loops over that many
-        compartment ranges run on numba's thread pool (the tree solve stays serial).
-        Only used where it pays off: a cell with channels and at least
+        1 (default) runs serially; 2 or more split the tree into a small top and
+        that many parts (:func:`split_tree`), each updated, eliminated and
+        back-substituted by one thread of numba's pool, the top serially (if the
+        tree cannot be split evenly, only the gate loops are split and the tree
+        solve is serial).  Only used where it pays off: a cell with channels and at least
         :data:`MIN_COMPARTMENTS_PER_THREAD` compartments per thread; otherwise the
         kernel runs serially (``kernel_threads`` says which).
 
@@ -1017,11 +1249,20 @@ class CompiledStepper:
         n = cell.n_compartments
         pays_off = bool(cell.channels) and n >= MIN_COMPARTMENTS_PER_THREAD * self.threads
         self.kernel_threads = self.threads if pays_off else 1
+        grid_parent = np.asarray(grid.parent, dtype=np.int64)
+        block_indices = [np.asarray(b.index, dtype=np.int64) for b in cell.channels]
+        # with threads, the tree is split into a small top and one part per thread
+        # where that can be done evenly: each thread then also eliminates and
+        # back-substitutes its own part (split_tree); else the tree solve is serial
+        part = None
+        if self.kernel_threads > 1:
+            work = _compartment_work(n, zip((b.channel for b in cell.channels), block_indices))
+            part = split_tree(grid_parent, work, self.kernel_threads)
+        self.n_parts = 1 if part is None else self.kernel_threads
         # the kernel numbers compartments its own way (kernel_order): every
         # per-compartment array below is in that order, and run() maps states,
         # inputs and records between it and the grid's order
-        self.order = kernel_order(np.asarray(grid.parent, dtype=np.int64),
-                                  [b.index for b in cell.channels])
+        self.order = kernel_order(grid_parent, block_indices, part)
         self.position = np.empty(n, dtype=np.int64)
         self.position[self.order] = np.arange(n)
         order = self.order
@@ -1046,15 +1287,42 @@ class CompiledStepper:
             e = np.argsort(pos, kind="stable")
             self.entry_order.append(e)
             positions.append(np.ascontiguousarray(pos[e]))
-        bounds, self.thread_strips = _strip_bounds(n, list(zip(self.channels, positions)),
-                                                   self.kernel_threads, STRIP_COMPARTMENTS)
+        if part is None:
+            self.part_bounds = np.array([n, n], dtype=np.int64)  # no parts: all serial
+            self.thread_ranges = _chunk_bounds(n, list(zip(self.channels, positions)),
+                                               self.kernel_threads)
+            self.eparent = self.parent
+            self.slot_stride = 0
+        else:
+            # top, then part t at part_bounds[t] <= i < part_bounds[t + 1]; thread 0
+            # updates the top with its part
+            counts = np.bincount(part + 1, minlength=self.n_parts + 1)
+            self.part_bounds = np.cumsum(counts).astype(np.int64)
+            self.thread_ranges = np.concatenate([[0], self.part_bounds[1:]]).astype(np.int64)
+            m = int(self.part_bounds[0])
+            # each thread's slots for what its part gives the top, a multiple of 8
+            # doubles apart (no two threads write the same cache line)
+            self.slot_stride = -(-m // 8) * 8 + 8
+            thread_of = np.searchsorted(self.part_bounds[1:], np.arange(n), side="right")
+            eparent = self.parent.astype(np.int64)
+            to_top = (np.arange(n) >= m) & (eparent < m)
+            eparent[to_top] = n + thread_of[to_top] * self.slot_stride + eparent[to_top]
+            self.eparent = np.ascontiguousarray(eparent, dtype=np.int32)
+        # strips never cross a thread's range or the top's end
+        cuts = np.unique(np.concatenate([self.thread_ranges, self.part_bounds[:1]]))
+        owners = np.searchsorted(self.thread_ranges[1:], cuts[:-1], side="right")
+        bounds, self.thread_strips = _strip_bounds(cuts, owners, STRIP_COMPARTMENTS)
         self.strip_bounds = bounds
         self.max_strip = int(max(1, np.max(np.diff(bounds))))
         self.block_static = []
         for block, idx, e in zip(cell.channels, positions, self.entry_order):
-            contig = bool(idx.size == 0 or (idx[-1] - idx[0] + 1 == idx.size))
+            split = np.searchsorted(idx, bounds).astype(np.int64)
+            # the block's entries of every strip are one run of compartments
+            first, last = split[:-1], split[1:] - 1
+            has = last >= first
+            contig = bool(np.all(idx[last[has]] - idx[first[has]] == last[has] - first[has]))
             self.block_static.append((
-                idx, np.searchsorted(idx, bounds).astype(np.int64), contig,
+                idx, split, contig,
                 np.ascontiguousarray(np.asarray(block.parameters, dtype=float).reshape(
                     len(block.channel.parameter_names), idx.size)[:, e]),
                 np.ascontiguousarray(np.asarray(block.gmax_uS, dtype=float)[e]),
@@ -1092,6 +1360,14 @@ class CompiledStepper:
         tables = tables_for_settings(self.cell, settings, self._table_cache)
         self.kernel(tuple(t is not None for t in tables))
 
+    def _by_thread(self, compartments: np.ndarray):
+        """Entries of ``compartments`` (kernel positions) grouped by the thread whose
+        range holds them: (pointer of shape (threads + 1,), entries in order)."""
+        owner = np.searchsorted(self.thread_ranges[1:], compartments, side="right")
+        entries = np.argsort(owner, kind="stable").astype(np.int64)
+        ptr = np.searchsorted(owner[entries], np.arange(self.kernel_threads + 1), side="left")
+        return np.ascontiguousarray(ptr, dtype=np.int64), entries
+
     def run(self, settings: RunSettings, sched: StepSchedule, state: SolverState,
             record_index: np.ndarray):
         """Integrate ``sched.n_steps`` steps from ``state``.
@@ -1123,6 +1399,7 @@ class CompiledStepper:
         m = sched.injection_compartment.size
         inj_mid = np.ascontiguousarray(sched.injection_mid_nA, dtype=float).reshape(sched.n_steps, m)
         inj_end = np.ascontiguousarray(sched.injection_end_nA, dtype=float).reshape(sched.n_steps, m)
+        inj_comp = np.ascontiguousarray(pos[np.asarray(sched.injection_compartment, dtype=np.int64)])
         block_args = []
         for x, (idx, split, _, par, gm, er, phi), table in zip(gates, self.block_static, tables):
             if table is None:
@@ -1136,13 +1413,13 @@ class CompiledStepper:
                 float(settings.max_abs_v_mV), int(sched.record_every), float(state.gate_lag_ms),
                 self.fixed_matrix,
                 self.cap, self.static_diag, self.leak_j, self.offdiag, self.parent,
-                v, records, rec_idx,
-                np.ascontiguousarray(pos[np.asarray(sched.injection_compartment, dtype=np.int64)]),
-                inj_mid, inj_end,
+                v, records, rec_idx, inj_comp, inj_mid, inj_end,
                 syn["syn_comp"], syn["syn_kind"], syn["syn_tau_a"], syn["syn_tau_b"],
                 syn["syn_rev"], syn["syn_mg"], syn["syn_weight"], sa, sb,
                 decay["ea_full"], decay["eb_full"], decay["ea_half"], decay["eb_half"],
                 syn["ev_ptr"], syn["ev_syn"], syn["ev_off"], syn["ev_first"],
+                self.n_parts, self.part_bounds, self.eparent, self.slot_stride,
+                *self._by_thread(syn["syn_comp"]), *self._by_thread(inj_comp),
                 self.thread_strips, self.strip_bounds, self.max_strip, float(self.cell.celsius),
                 *block_args)
         try:
