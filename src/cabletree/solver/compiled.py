@@ -559,7 +559,7 @@ def gates_and_currents(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak
 
 
 @numba.njit(**_JIT_PAR)
-def gates_and_parts(v, dt_gate, d, r, rheff, cap, static_diag, leak_j, bounds, ws, wi, tp,
+def gates_and_parts(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds, ws, wi, tp,
                     celsius, part_bounds, eparent, offdiag, slot_stride,
                     syn_comp, syn_g, syn_j, syn_thread_ptr, syn_by_thread,
                     inj_comp, inj_row, inj_thread_ptr, inj_by_thread{block_params}):
@@ -570,7 +570,7 @@ def gates_and_parts(v, dt_gate, d, r, rheff, cap, static_diag, leak_j, bounds, w
     # compartments (d[n + t * slot_stride + p]), added up serially afterwards
     n = v.size
     for t in numba.prange(N_CHUNKS):
-        thread_strips(t, v, dt_gate, d, r, True, rheff, cap, static_diag, leak_j, bounds,
+        thread_strips(t, v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
                       ws, wi, tp, celsius{block_args})
         for q in range(syn_thread_ptr[t], syn_thread_ptr[t + 1]):
             s = syn_by_thread[q]
@@ -588,7 +588,7 @@ def gates_and_parts(v, dt_gate, d, r, rheff, cap, static_diag, leak_j, bounds, w
     return 0
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_JIT_INLINE)
 def eliminate_part(lo, hi, offdiag, parent, d, r):
     # Gaussian elimination of compartments hi - 1 down to lo (leaves first) into their
     # parents; d[i] is final when i is reached, so its reciprocal replaces it and the
@@ -602,14 +602,14 @@ def eliminate_part(lo, hi, offdiag, parent, d, r):
         r[p] -= f * r[i]
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_JIT_INLINE)
 def eliminate(lo, hi, offdiag, parent, d, r):
     # elimination of compartments lo <= i < hi (lo >= 1) and then of the root
     eliminate_part(lo, hi, offdiag, parent, d, r)
     d[0] = 1.0 / d[0]
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_JIT_INLINE)
 def back_substitute_root(v, cn, d, r, limit):
     # the root's new potential (see back_substitute); 1 if it is NaN or runaway
     vo = r[0] * d[0]
@@ -619,7 +619,7 @@ def back_substitute_root(v, cn, d, r, limit):
     return 0 if abs(vn) <= limit else 1
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_JIT_INLINE)
 def back_substitute(lo, hi, v, cn, offdiag, parent, d, r, limit):
     # back-substitution of compartments lo <= i < hi, whose parents are done, with the
     # new potential (Crank-Nicolson: extrapolated from the half step); returns the
@@ -644,7 +644,7 @@ def back_parts(v, cn, part_bounds, offdiag, parent, d, r, limit, n_bad):
     return 0
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_JIT_INLINE)
 def synapse_terms(v, h, cn, first_half, second_half, step, dt,
                   syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                   sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
@@ -715,10 +715,14 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
                   syn_comp, syn_kind, syn_tau_a, syn_tau_b, syn_rev, syn_mg, syn_weight,
                   sa, sb, sa_old, sb_old, ea_h, eb_h, ev_ptr, ev_syn, ev_off, ev_first,
                   syn_g, syn_j)
-    if n_parts > 1:
-        # a split tree (threads only; never a fixed matrix): gates, synapse and
-        # injection terms and the parts' elimination in one parallel region
-        gates_and_parts(v, dt_gate, d, r, rheff, cap, static_diag, leak_j, bounds, ws, wi, tp,
+    # the matrix is the same as at the last factorisation (a cell without channels
+    # or synapses at the same step size): only the right-hand side is needed
+    refactor = not (fixed_matrix and rheff == factor_rheff[0])
+    if SPLIT and n_parts > 1:
+        # a split tree (threads only; never a fixed matrix, so refactor is True):
+        # gates, synapse and injection terms and the parts' elimination in one
+        # parallel region (SPLIT, a constant, keeps this out of serial kernels)
+        gates_and_parts(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds, ws, wi, tp,
                         celsius, part_bounds, eparent, offdiag, slot_stride,
                         syn_comp, syn_g, syn_j, syn_thread_ptr, syn_by_thread,
                         inj_comp, inj_row, inj_thread_ptr, inj_by_thread{block_args})
@@ -735,9 +739,6 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
         for t in range(n_parts):
             n_bad += n_bad_t[8 * t]
         return n_bad
-    # the matrix is the same as at the last factorisation (a cell without channels
-    # or synapses at the same step size): only the right-hand side is needed
-    refactor = not (fixed_matrix and rheff == factor_rheff[0])
     # the tree system of the step: capacitive, static and channel terms (by strips),
     # then synapses and injections, all added into the diagonal d and the
     # right-hand side r
@@ -916,8 +917,11 @@ def _load_kernel(channels: tuple, contiguous: tuple, threads: int, tabulated: tu
     spec = importlib.util.spec_from_file_location(name, path)
     module = importlib.util.module_from_spec(spec)
     par = dict(_JIT, parallel=threads > 1)
+    # small helpers are inlined at numba's level: each function compiled on its own
+    # costs compile time (an HH kernel's first build 5.5 -> 5.1 s)
     module.__dict__.update(np=_FAST_NP, _JIT=dict(_JIT), _JIT_CACHE=dict(_JIT, cache=True),
-                           _JIT_PAR=par, N_CHUNKS=int(threads))
+                           _JIT_INLINE=dict(_JIT, inline="always"),
+                           _JIT_PAR=par, N_CHUNKS=int(threads), SPLIT=threads > 1)
     for b, ch in enumerate(channels):
         module.__dict__[f"PT_{b}"] = ch.parameter_tuple
         for j, gate in enumerate(ch.gates):
