@@ -136,12 +136,14 @@ def time_run(cell, backend, n_steps, repeats, dt=0.025):
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     # scratch arrays allocated inside the compiled kernel are invisible to tracemalloc:
-    # the tree system's diagonal and right-hand side (N doubles each) and, per
-    # thread, five rows of doubles and one of int32 as long as a strip of the gate loops
+    # the tree system's diagonal and right-hand side (N doubles each; a third array, the
+    # stored elimination multipliers, for a fixed matrix) and, per thread, five rows of
+    # doubles and one of int32 as long as a strip of the gate loops
     scratch = 0
     if backend.startswith("compiled"):
         n = cell.n_compartments
-        scratch = 2 * n * 8 + stepper.kernel_threads * stepper.max_strip * (5 * 8 + 4)
+        scratch = ((3 if stepper.fixed_matrix else 2) * n * 8
+                   + stepper.kernel_threads * stepper.max_strip * (5 * 8 + 4))
     return float(np.median(times)) / n_steps, (peak + scratch) / 1e6
 
 
