@@ -52,8 +52,8 @@ default of 256).
 
 Compartment order: the kernel numbers compartments its own way
 (:func:`kernel_order`), parents first as the elimination needs, with each
-channel block in one contiguous run where the tree allows, so its gate loops
-read and write plain views; :class:`CompiledStepper` maps states, inputs and
+channel block in one contiguous run (one per part of a split tree) where the
+tree allows, so its gate loops read and write plain views; :class:`CompiledStepper` maps states, inputs and
 records to and from the grid's order.
 
 Strips and threads: each thread updates its compartments in strips of at most
@@ -66,9 +66,10 @@ thread updates its part's gates (thread 0 also the top's), adds its synapse and
 injection terms and eliminates its part, sending what the part gives the top to
 its own slots; the top is eliminated and back-substituted serially, and a second
 region back-substitutes the parts.  Every thread thus works on its own data
-(with a serial solve, moving the system's halves between the cores cost about a
-tenth of a step at N = 1e4; benchmarks/README.md).  If no even split with a small top exists (an
-unbranched cable), the tree solve stays serial.  Off by default because sweeps
+(with a serial solve one core read the other's half of the system every step,
+about 10 µs per 40 kB on the benchmark machine; benchmarks/README.md).  If no
+even split with a small top exists (an unbranched cable), the tree solve stays
+serial.  Off by default because sweeps
 parallelise over runs instead.
 """
 
@@ -892,7 +893,8 @@ def _load_kernel(channels: tuple, contiguous: tuple, threads: int, tabulated: tu
                  uniform: tuple):
     """The compiled ``run`` function for a channel set (built once per process).
 
-    ``contiguous[b]`` says whether block ``b`` covers a contiguous index range,
+    ``contiguous[b]`` says whether block ``b``'s entries form one run of
+    compartments in every strip,
     ``tabulated[b]`` whether it reads a rate table instead of its rate functions and
     ``uniform[b]`` which of its per-compartment values are uniform
     (see :func:`_block_source`).
