@@ -489,6 +489,23 @@ def test_threads_only_where_they_pay_off(monkeypatch):
     monkeypatch.setattr(compiled, "MIN_COMPARTMENTS_PER_THREAD", 1)
     assert compiled.CompiledStepper(small, threads=2).kernel_threads == 2
     assert compiled.CompiledStepper(_passive_cell(), threads=2).kernel_threads == 1
+    # an unbranched cable cannot be split: threads then need the larger size at
+    # which the gate loops alone pay off
+    cable = build_cell(synthetic.cylinder(2000.0, 2.0, n_samples=201),
+                       channels=[ChannelPlacement(hh_sodium, 0.12),
+                                 ChannelPlacement(hh_potassium, 0.036)])
+    assert compiled.CompiledStepper(cable, threads=2).kernel_threads == 1
+    monkeypatch.setattr(compiled, "MIN_COMPARTMENTS_PER_THREAD_SERIAL_SOLVE", 1)
+    two = compiled.CompiledStepper(cable, threads=2)
+    assert two.kernel_threads == 2 and two.n_parts == 1
+    # then the gate loops are split between the threads and the tree solve is serial;
+    # reference: the numpy backend
+    cable = cable.with_inputs(injections=[CurrentInjection(Site("end", 0),
+                                                           StepCurrent(0.3, 1.0, 5.0))])
+    ref, par = (simulate(cable, RunSettings(6.0, 0.025), backend=b, threads=t)
+                for b, t in (("reference", 1), ("compiled", 2)))
+    assert ref.v_mV.max() > 0.0
+    _agree(ref.v_mV, par.v_mV)
     with pytest.raises(SolverError, match="threads must be an integer >= 1"):
         compiled.CompiledStepper(small, threads=0)
 

@@ -1221,10 +1221,15 @@ def _is_uniform(values: np.ndarray) -> bool:
     return bool(values.size == 0 or np.all(values == values.flat[0]))
 
 
-#: Fewest compartments per thread for which threads pay off: below it (or for a cell
-#: without channels, which has no gate loops) a two-thread run was measured no faster
-#: than one thread (benchmarks/README.md), so the kernel runs serially.
-MIN_COMPARTMENTS_PER_THREAD = 2500
+#: Fewest compartments per thread for which threads pay off when the tree can be split
+#: (:func:`split_tree`): below it (or for a cell without channels, which has no gate
+#: loops) a two-thread run was measured no faster than one thread, so the kernel runs
+#: serially (HH + A-type, two threads against one: N = 1890 equal, N = 2408 1.38x).
+MIN_COMPARTMENTS_PER_THREAD = 1200
+
+#: The same for a tree that cannot be split, where only the gate loops use the threads
+#: and the tree solve stays serial (measured before the split existed).
+MIN_COMPARTMENTS_PER_THREAD_SERIAL_SOLVE = 2500
 
 
 class CompiledStepper:
@@ -1239,7 +1244,8 @@ class CompiledStepper:
         back-substituted by one thread of numba's pool, the top serially (if the
         tree cannot be split evenly, only the gate loops are split and the tree
         solve is serial).  Only used where it pays off: a cell with channels and at least
-        :data:`MIN_COMPARTMENTS_PER_THREAD` compartments per thread; otherwise the
+        :data:`MIN_COMPARTMENTS_PER_THREAD` compartments per thread
+        (:data:`MIN_COMPARTMENTS_PER_THREAD_SERIAL_SOLVE` if the tree cannot be split); otherwise the
         kernel runs serially (``kernel_threads`` says which).
 
     Raises
@@ -1264,6 +1270,8 @@ class CompiledStepper:
         if self.kernel_threads > 1:
             work = _compartment_work(n, zip((b.channel for b in cell.channels), block_indices))
             part = split_tree(grid_parent, work, self.kernel_threads)
+            if part is None and n < MIN_COMPARTMENTS_PER_THREAD_SERIAL_SOLVE * self.threads:
+                self.kernel_threads = 1
         self.n_parts = 1 if part is None else self.kernel_threads
         # the kernel numbers compartments its own way (kernel_order): every
         # per-compartment array below is in that order, and run() maps states,
