@@ -1134,16 +1134,17 @@ def split_tree(parent: np.ndarray, work: np.ndarray, n_parts: int,
     even = subtree[0] / n_parts
     top = [0]
     hanging = list(children_sorted[first[0]:first[1]].tolist())
+    weight = subtree.tolist()
     while True:
-        hanging.sort(key=lambda c: -subtree[c])
-        loads = np.zeros(n_parts)
-        loads[0] = subtree[0] - sum(subtree[c] for c in hanging)  # the top's own work
+        hanging.sort(key=lambda c: -weight[c])
+        loads = [0.0] * n_parts
+        loads[0] = weight[0] - sum(weight[c] for c in hanging)  # the top's own work
         assign = {}
         for c in hanging:
-            t = int(np.argmin(loads))
-            loads[t] += subtree[c]
+            t = loads.index(min(loads))
+            loads[t] += weight[c]
             assign[c] = t
-        if loads.max() <= SPLIT_IMBALANCE_LIMIT * even:
+        if max(loads) <= SPLIT_IMBALANCE_LIMIT * even:
             break
         if not hanging or len(top) >= max_top:
             return None
