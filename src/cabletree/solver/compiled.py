@@ -94,7 +94,7 @@ from ..cell import CellModel
 from ..fileio import write_atomically
 from ..errors import NumericalInstabilityError, SolverError
 from ..inputs import double_exponential_peak
-from .plan import RunSettings, SolverState, StepSchedule, check_threads
+from .plan import RunSettings, SolverState, StepSchedule, check_threads, is_uniform
 from .tables import tables_for_settings
 
 __all__ = ["CompiledStepper", "fast_exp", "kernel_cache_dir", "FASTMATH_FLAGS"]
@@ -560,8 +560,8 @@ def gates_and_currents(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak
 
 
 @numba.njit(**_JIT_PAR)
-def gates_and_parts(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds, ws, wi, tp,
-                    celsius, part_bounds, eparent, offdiag, slot_stride,
+def gates_and_parts(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
+                    ws, wi, tp, celsius, part_bounds, eparent, offdiag, slot_stride,
                     syn_comp, syn_g, syn_j, syn_thread_ptr, syn_by_thread,
                     inj_comp, inj_row, inj_thread_ptr, inj_by_thread{block_params}):
     # a tree split into a top and one part per thread (split_tree): in one parallel
@@ -723,8 +723,8 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
         # a split tree (threads only; never a fixed matrix, so refactor is True):
         # gates, synapse and injection terms and the parts' elimination in one
         # parallel region (SPLIT, a constant, keeps this out of serial kernels)
-        gates_and_parts(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds, ws, wi, tp,
-                        celsius, part_bounds, eparent, offdiag, slot_stride,
+        gates_and_parts(v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j, bounds,
+                        ws, wi, tp, celsius, part_bounds, eparent, offdiag, slot_stride,
                         syn_comp, syn_g, syn_j, syn_thread_ptr, syn_by_thread,
                         inj_comp, inj_row, inj_thread_ptr, inj_by_thread{block_args})
         m = part_bounds[0]
@@ -755,20 +755,14 @@ def substep(v, h, cn, dt_gate, inj_row, first_half, second_half, step, dt,
         # factorisation stored (one array read instead of two)
         for i in range(n - 1, 0, -1):
             r[parent[i]] -= mult[i] * r[i]
-    elif fixed_matrix:
-        # as below, keeping the multipliers for the steps to come
-        for i in range(n - 1, 0, -1):
-            p = parent[i]
-            rd = 1.0 / d[i]
-            d[i] = rd
-            f = offdiag[i] * rd
-            mult[i] = f
-            d[p] -= f * offdiag[i]
-            r[p] -= f * r[i]
-        d[0] = 1.0 / d[0]
-        factor_rheff[0] = rheff
     else:
         eliminate(1, n, offdiag, parent, d, r)
+        if fixed_matrix:
+            # keep the multipliers for the steps to come (the products the
+            # elimination used: d[i] holds the pivot's reciprocal now)
+            for i in range(1, n):
+                mult[i] = offdiag[i] * d[i]
+            factor_rheff[0] = rheff
     return back_substitute_root(v, cn, d, r, limit) + back_substitute(1, n, v, cn, offdiag,
                                                                       parent, d, r, limit)
 
@@ -784,9 +778,8 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
     n = v.size
     # the tree system's diagonal and right-hand side; with a split tree, followed by
     # each thread's slots for what its part gives the top
-    n_slots = n_parts * slot_stride if n_parts > 1 else 0
-    d = np.empty(n + n_slots)
-    r = np.empty(n + n_slots)
+    d = np.empty(n + n_parts * slot_stride)  # slot_stride is 0 without a split
+    r = np.empty(n + n_parts * slot_stride)
     n_bad_t = np.zeros(8 * n_parts, dtype=np.int64)  # one cache line per thread
     syn_g = np.empty(sa.size)
     syn_j = np.empty(sa.size)
@@ -1123,18 +1116,15 @@ def split_tree(parent: np.ndarray, work: np.ndarray, n_parts: int,
     parent = np.asarray(parent, dtype=np.int64)
     n = parent.size
     max_top = max(16, n // 50) if max_top is None else max_top
-    subtree = np.asarray(work, dtype=float).copy()
     par = parent.tolist()
-    acc = subtree.tolist()
+    weight = np.asarray(work, dtype=float).tolist()  # becomes each subtree's work
     for i in range(n - 1, 0, -1):
-        acc[par[i]] += acc[i]
-    subtree = np.asarray(acc)
+        weight[par[i]] += weight[i]
     children_sorted = np.argsort(parent[1:], kind="stable") + 1
     first = np.searchsorted(parent[children_sorted], np.arange(n + 1), side="left")
-    even = subtree[0] / n_parts
+    even = weight[0] / n_parts
     top = [0]
-    hanging = list(children_sorted[first[0]:first[1]].tolist())
-    weight = subtree.tolist()
+    hanging = children_sorted[first[0]:first[1]].tolist()
     while True:
         hanging.sort(key=lambda c: -weight[c])
         loads = [0.0] * n_parts
@@ -1206,20 +1196,15 @@ def _compartment_work(n: int, blocks) -> np.ndarray:
     return work
 
 
-def _chunk_bounds(n: int, blocks, n_chunks: int) -> np.ndarray:
-    """Compartment boundaries splitting the work (:func:`_compartment_work`; ``blocks``
-    in kernel positions) into ``n_chunks`` ranges of about equal total.
+def _chunk_bounds(work: np.ndarray, n_chunks: int) -> np.ndarray:
+    """Boundaries splitting compartments of the given work (:func:`_compartment_work`,
+    in kernel order) into ``n_chunks`` ranges of about equal total.
 
     Returns ``n_chunks + 1`` increasing kernel positions from 0 to N.
     """
-    cum = np.cumsum(_compartment_work(n, blocks))
+    cum = np.cumsum(work)
     inner = np.searchsorted(cum, cum[-1] * np.arange(1, n_chunks) / n_chunks)
-    return np.concatenate([[0], inner, [n]]).astype(np.int64)
-
-
-def _is_uniform(values: np.ndarray) -> bool:
-    """Whether every element equals the first (an empty array counts as uniform)."""
-    return bool(values.size == 0 or np.all(values == values.flat[0]))
+    return np.concatenate([[0], inner, [work.size]]).astype(np.int64)
 
 
 #: Fewest compartments per thread for which threads pay off when the tree can be split
@@ -1267,9 +1252,9 @@ class CompiledStepper:
         # with threads, the tree is split into a small top and one part per thread
         # where that can be done evenly: each thread then also eliminates and
         # back-substitutes its own part (split_tree); else the tree solve is serial
+        work = _compartment_work(n, zip((b.channel for b in cell.channels), block_indices))
         part = None
         if self.kernel_threads > 1:
-            work = _compartment_work(n, zip((b.channel for b in cell.channels), block_indices))
             part = split_tree(grid_parent, work, self.kernel_threads)
             if part is None and n < MIN_COMPARTMENTS_PER_THREAD_SERIAL_SOLVE * self.threads:
                 self.kernel_threads = 1
@@ -1283,7 +1268,7 @@ class CompiledStepper:
         order = self.order
         g = np.ascontiguousarray(cell.axial_conductance_uS[order], dtype=float)
         self.offdiag = -g
-        parent = np.asarray(grid.parent, dtype=np.int64)[order]
+        parent = grid_parent[order]
         parent[1:] = self.position[parent[1:]]
         self.parent = np.ascontiguousarray(parent, dtype=np.int32)  # less memory traffic than int64
         leak_g = np.ascontiguousarray(cell.leak_uS[order], dtype=float)
@@ -1297,15 +1282,14 @@ class CompiledStepper:
         # block's own (grid) entry order, in which gate states are stored
         self.entry_order = []
         positions = []
-        for block in cell.channels:
-            pos = self.position[np.asarray(block.index, dtype=np.int64)]
+        for index in block_indices:
+            pos = self.position[index]
             e = np.argsort(pos, kind="stable")
             self.entry_order.append(e)
             positions.append(np.ascontiguousarray(pos[e]))
         if part is None:
             self.part_bounds = np.array([n, n], dtype=np.int64)  # no parts: all serial
-            self.thread_ranges = _chunk_bounds(n, list(zip(self.channels, positions)),
-                                               self.kernel_threads)
+            self.thread_ranges = _chunk_bounds(work[order], self.kernel_threads)
             self.eparent = self.parent
             self.slot_stride = 0
         else:
@@ -1318,10 +1302,9 @@ class CompiledStepper:
             # each thread's slots for what its part gives the top, a multiple of 8
             # doubles apart (no two threads write the same cache line)
             self.slot_stride = -(-m // 8) * 8 + 8
-            thread_of = np.searchsorted(self.part_bounds[1:], np.arange(n), side="right")
             eparent = self.parent.astype(np.int64)
-            to_top = (np.arange(n) >= m) & (eparent < m)
-            eparent[to_top] = n + thread_of[to_top] * self.slot_stride + eparent[to_top]
+            to_top = np.flatnonzero((np.arange(n) >= m) & (eparent < m))
+            eparent[to_top] += n + self._thread_of(to_top) * self.slot_stride
             self.eparent = np.ascontiguousarray(eparent, dtype=np.int32)
         # strips never cross a thread's range or the top's end
         cuts = np.unique(np.concatenate([self.thread_ranges, self.part_bounds[:1]]))
@@ -1344,7 +1327,7 @@ class CompiledStepper:
                 np.ascontiguousarray(np.asarray(block.reversal_mV, dtype=float)[e]),
                 float(block.channel.temperature_factor(cell.celsius))))
         self.contiguous = tuple(bs[2] for bs in self.block_static)
-        self.uniform = tuple((_is_uniform(er), tuple(_is_uniform(row) for row in par))
+        self.uniform = tuple((is_uniform(er), tuple(is_uniform(row) for row in par))
                              for _, _, _, par, _, er, _ in self.block_static)
         # without channels or synapses the matrix changes only with the step size,
         # so the kernel factors it once and then eliminates right-hand sides only
@@ -1375,10 +1358,14 @@ class CompiledStepper:
         tables = tables_for_settings(self.cell, settings, self._table_cache)
         self.kernel(tuple(t is not None for t in tables))
 
+    def _thread_of(self, positions: np.ndarray) -> np.ndarray:
+        """The thread whose range holds each kernel position."""
+        return np.searchsorted(self.thread_ranges[1:], positions, side="right")
+
     def _by_thread(self, compartments: np.ndarray):
         """Entries of ``compartments`` (kernel positions) grouped by the thread whose
         range holds them: (pointer of shape (threads + 1,), entries in order)."""
-        owner = np.searchsorted(self.thread_ranges[1:], compartments, side="right")
+        owner = self._thread_of(compartments)
         entries = np.argsort(owner, kind="stable").astype(np.int64)
         ptr = np.searchsorted(owner[entries], np.arange(self.kernel_threads + 1), side="left")
         return np.ascontiguousarray(ptr, dtype=np.int64), entries

@@ -16,7 +16,7 @@ from ..cell import CellModel
 from ..errors import SolverError
 
 __all__ = ["METHODS", "RunSettings", "StepSchedule", "SolverState", "make_schedule",
-           "check_threads", "resting_state"]
+           "check_threads", "is_uniform", "resting_state"]
 
 #: Time-stepping methods.  ``backward_euler``: first order, L-stable.
 #: ``crank_nicolson``: second order, gates staggered half a step from the voltage
@@ -265,13 +265,32 @@ def resting_state(cell: CellModel, v_init_mV: float) -> SolverState:
                        tuple(b.channel.name for b in cell.channels))
 
 
+def is_uniform(values: np.ndarray) -> bool:
+    """Whether every element of a per-compartment array equals the first.
+
+    Both backends read such a parameter or reversal potential as one scalar (less
+    memory traffic, the same numbers).  An empty array counts as uniform; NaN
+    never does.
+
+    Parameters
+    ----------
+    values : ndarray
+        Values in any unit.
+
+    Returns
+    -------
+    bool
+    """
+    return bool(values.size == 0 or np.all(values == values.flat[0]))
+
+
 def check_threads(threads) -> int:
     """The number of threads asked for, as an int.
 
     Parameters
     ----------
     threads : int
-        Threads for the compiled backend's gate loops (dimensionless count).
+        Threads for the compiled backend (dimensionless count).
 
     Returns
     -------

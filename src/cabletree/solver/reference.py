@@ -43,7 +43,7 @@ import numpy as np
 from ..cell import CellModel
 from ..errors import NumericalInstabilityError
 from ..inputs import double_exponential_peak, mg_block
-from .plan import RunSettings, SolverState, StepSchedule
+from .plan import RunSettings, SolverState, StepSchedule, is_uniform
 from .tables import interpolate, tables_for_settings
 
 __all__ = ["TreeMatrix", "HeavyPathSolver", "ReferenceStepper"]
@@ -469,7 +469,7 @@ def _span(index: np.ndarray, reversal_mV) -> _Span | None:
 
 def _uniform_as_float(values: np.ndarray):
     """``values`` as one float when all entries are equal (a cheaper operand, same results)."""
-    if values.size and np.all(values == values[0]):
+    if values.size and is_uniform(values):
         return float(values[0])
     return values
 
