@@ -138,8 +138,9 @@ def _add_run(sub) -> None:
     p.add_argument("--backend", default="auto", choices=("auto", "reference", "compiled"),
                    help="solver backend (default: auto = the scenario's run.backend)")
     p.add_argument("--threads", type=int, default=None, metavar="N",
-                   help="threads for the compiled backend's gate loops, used where they pay "
-                        "off (default: the scenario's run.threads, else 1)")
+                   help="threads for the compiled backend, each updating and solving its part "
+                        "of the tree, used where they pay off (default: the scenario's "
+                        "run.threads, else 1)")
     p.set_defaults(func=_cmd_run)
 
 

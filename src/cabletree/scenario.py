@@ -62,10 +62,10 @@ Sections
     ``t_stop_ms`` (required), ``dt_ms`` (0.025), ``method`` (``crank_nicolson``),
     ``record_interval_ms``, ``v_init_mV`` (-65), ``celsius`` (34), ``seed`` (0; the
     default of every seed not given), ``backend`` (``auto``), ``threads`` (1: threads
-    for the compiled backend's gate loops, used where they pay off; sweeps always
-    run each cell on one thread), ``settle_ms`` (0: run
-    this long without inputs first and start from the state reached, so the
-    recording begins at rest), ``rate_table_step_mV`` (absent: exact rates; opt-in
+    for the compiled backend, each updating and solving its part of the tree, used
+    where they pay off; sweeps always run each cell on one thread), ``settle_ms``
+    (0: run this long without inputs first and start from the state reached, so
+    the recording begins at rest), ``rate_table_step_mV`` (absent: exact rates; opt-in
     tabulated rates at this voltage spacing, see :mod:`cabletree.solver.tables`).
 ``[analysis]`` (optional)
     What :mod:`cabletree.report` computes and draws; see there.

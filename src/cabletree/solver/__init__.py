@@ -107,9 +107,10 @@ def simulate(cell: CellModel, settings: RunSettings, *, initial_state: SolverSta
     progress_chunks : int
         Number of pieces when ``progress`` is given.
     threads : int
-        Threads for the compiled backend's gate loops (>= 1; used where it pays
-        off, see :class:`cabletree.solver.compiled.CompiledStepper`; the tree
-        solve stays serial).  The reference backend always runs serially.  Leave
+        Threads for the compiled backend (>= 1; each updates and solves its own
+        part of the tree, used where it pays off, see
+        :class:`cabletree.solver.compiled.CompiledStepper`).  The reference
+        backend always runs serially.  Leave
         it at 1 for sweeps, which run many cells in parallel instead.
 
     Returns
