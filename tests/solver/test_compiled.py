@@ -20,7 +20,8 @@ from cabletree.morphology import synthetic
 from cabletree.profiles import ChannelPlacement, Linear, Selector
 from cabletree.sites import Site, all_compartment_sites, soma_site
 from cabletree.solver import RunSettings, simulate
-from cabletree.solver.compiled import fast_exp, jit_rate_function
+from cabletree.solver.compiled import (EXPONENTIAL_METHOD, _exponential_method, exp_by_polynomial,
+                                       exp_by_table, fast_exp, jit_rate_function)
 from cabletree.solver.plan import resting_state
 
 numba = pytest.importorskip("numba")
@@ -59,13 +60,29 @@ def _passive_cell(**inputs):
 
 # --- the vectorisable exponential -------------------------------------------
 
-def test_fast_exp_matches_libm():
+@pytest.mark.parametrize("exp", [exp_by_table, exp_by_polynomial])
+def test_fast_exp_matches_libm(exp):
     # reference: the C library exp via numpy; 2 ulp is our stated bound
-    x = np.concatenate([np.linspace(-700, 700, 20001), np.linspace(-1, 1, 2001)])
-    got = np.array([fast_exp(v) for v in x])
+    x = np.concatenate([np.linspace(-700, 700, 20001), np.linspace(-1, 1, 2001),
+                        np.random.default_rng(3).uniform(-30.0, 30.0, 100_000)])
+    got = np.array([exp(v) for v in x])
     assert np.max(np.abs(got / np.exp(x) - 1.0)) < 5e-16
-    assert fast_exp(-800.0) == 0.0 and fast_exp(800.0) == np.inf
-    assert np.isnan(fast_exp(np.nan))
+    assert np.max(np.abs(got - np.exp(x)) / np.spacing(np.exp(x))) <= 2.0
+    assert exp(-800.0) == 0.0 and exp(800.0) == np.inf
+    assert np.isnan(exp(np.nan))
+
+
+def test_exponential_method_by_environment_or_processor():
+    # CABLETREE_EXP names the method; anything else is refused with the allowed values
+    assert fast_exp is {"table": exp_by_table, "polynomial": exp_by_polynomial}[EXPONENTIAL_METHOD]
+    for name in ("table", "polynomial"):
+        with pytest.MonkeyPatch.context() as mp:
+            mp.setenv("CABLETREE_EXP", name)
+            assert _exponential_method() == name
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv("CABLETREE_EXP", "spline")
+        with pytest.raises(SolverError, match="'table' or 'polynomial'"):
+            _exponential_method()
 
 
 # --- agreement with the reference ------------------------------------------------

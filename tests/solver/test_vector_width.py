@@ -1,4 +1,5 @@
-"""The compiled kernel's vector width (``cabletree.solver.compiled.WIDE_VECTORS``).
+"""The compiled kernel's vector width (``cabletree.solver.compiled.WIDE_VECTORS``) and
+exponential method (``EXPONENTIAL_METHOD``).
 
 512-bit vectors only change how many compartments one instruction handles: the
 kernel's floating-point flags forbid re-association, so every compartment sees
@@ -47,3 +48,18 @@ def test_results_identical_at_either_vector_width(tmp_path):
     b = np.load(tmp_path / "narrow.npy")
     assert a.max() > 0.0  # the cell fired
     assert np.array_equal(a, b)
+
+
+@pytest.mark.slow
+def test_results_agree_with_either_exponential_method(tmp_path):
+    # reference: both methods are within 2 ulp of libm (test_fast_exp_matches_libm),
+    # so a spiking run differs by rounding only; 1e-9 relative is the tolerance the
+    # compiled and reference backends are held to
+    runs = {}
+    for method in ("table", "polynomial"):
+        _python(RUN_HH_CELL, str(tmp_path / f"{method}.npy"),
+                CABLETREE_KERNEL_DIR=str(tmp_path / f"{method}_kernels"), CABLETREE_EXP=method)
+        runs[method] = np.load(tmp_path / f"{method}.npy")
+    a, b = runs["table"], runs["polynomial"]
+    assert a.max() > 0.0  # the cell fired
+    np.testing.assert_allclose(b, a, rtol=1e-9, atol=1e-9 * np.max(np.abs(a)))
