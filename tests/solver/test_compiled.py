@@ -543,6 +543,32 @@ def test_simulate_passes_threads_to_the_compiled_backend(monkeypatch):
             simulate(cell, settings, backend=backend, threads=0)
 
 
+def test_conductances_and_leak_read_through_capacitance_or_per_compartment():
+    # a uniform density on a uniform specific capacitance is read as capacitance times
+    # one ratio (no array of its own), as is a uniform leak current; a density profile
+    # or a capacitance that differs by SWC type keeps the per-compartment arrays; every
+    # layout must give the reference backend's answers (1e-9 relative)
+    from cabletree.solver import compiled
+    uniform_cm = Membrane(leak_S_per_cm2=3e-4, leak_reversal_mV=-54.387)
+    soma_cm = Membrane(cm_uF_per_cm2={1: 1.0, "default": 2.0}, leak_S_per_cm2=3e-4,
+                       leak_reversal_mV=-54.387)
+    cases = ((uniform_cm, 0.036, (True, True), True),
+             (uniform_cm, Linear(0.036, 2e-4), (True, False), True),
+             (soma_cm, 0.036, (False, False), False))
+    for membrane, k_density, per_capacitance, leak_per_capacitance in cases:
+        base = build_cell(_tree(), membrane=membrane, channels=[
+            ChannelPlacement(hh_sodium, 0.12), ChannelPlacement(hh_potassium, k_density)])
+        cell = base.with_inputs(recording_sites=all_compartment_sites(base.grid), injections=[
+            CurrentInjection(soma_site(base.grid), StepCurrent(0.5, 1.0, 5.0))])
+        stepper = compiled.CompiledStepper(cell)
+        assert stepper.per_capacitance == per_capacitance
+        assert (stepper.leak_per_capacitance is not None) == leak_per_capacitance
+        ref, comp = _both(cell, RunSettings(8.0, 0.025))
+        assert np.ptp(ref.v_mV) > 50.0  # it spikes
+        _agree(ref.v_mV, comp.v_mV)
+        _agree(ref.final_state.gates[1], comp.final_state.gates[1])
+
+
 def test_uniform_values_read_once_and_varying_values_per_compartment():
     # a block's reversal potential and named parameters are read as one scalar when
     # they are uniform and per compartment when a profile makes them vary; both

@@ -460,7 +460,7 @@ def _rate_functions(channel):
 # --- generated source ------------------------------------------------------------
 
 def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False,
-                  uniform: tuple = (False, ())) -> str:
+                  uniform: tuple = (False, ()), per_capacitance: bool = False) -> str:
     """Source of the gate-update + conductance function of channel block ``b``.
 
     The function updates the block's entries ``k0 <= k < k1`` (all of them on one
@@ -496,12 +496,18 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False,
     potential and each of its named parameters (a tuple of bools) take one value
     over all its compartments; such a value is read once, as a scalar, instead of
     per compartment (less memory traffic per step).
+
+    A ``per_capacitance`` block (contiguous only) is called with the strip's
+    membrane capacitances (nF) in place of its maximal conductances and with
+    ``gscale``, their uniform ratio (µS/nF): a channel of uniform density on a
+    membrane of uniform specific capacitance needs no array of its own (less
+    memory traffic per step, which counts once the cell outgrows the caches).
     """
     npar = len(channel.parameter_names)
     uniform_reversal, uniform_parameters = uniform
     uniform_parameters = tuple(uniform_parameters) or (False,) * npar
     lines = ["@numba.njit(**_JIT)",
-             f"def block_{b}(v, index, k0, k1, x, par, gmax, erev, celsius, phi, "
+             f"def block_{b}(v, index, k0, k1, x, par, gmax, gscale, erev, celsius, phi, "
              "dt_gate, d, r, w0, w1, wf, wi, vg, gg, tb, tv):",
              # k0 < 0 never happens; it tells the compiler k >= 0 (no negative-index
              # wraparound); an empty range must not read the scalars below
@@ -570,7 +576,7 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False,
                   f"        x[{j}, k] = inf + (x[{j}, k] - inf) * np.exp(w1[kk])"]
     lines += ["    for kk in range(k1 - k0):",
               "        k = k0 + kk",
-              "        g = gmax[k]"]
+              "        g = gmax[k] * gscale" if per_capacitance else "        g = gmax[k]"]
     for j, gate in enumerate(channel.gates):
         if int(gate.power) > 0:
             lines.append(f"        xj = x[{j}, k]")
@@ -590,8 +596,20 @@ def _block_source(b: int, channel, contiguous: bool, tabulated: bool = False,
 _KERNEL_TEMPLATE = '''
 @numba.njit(**_JIT)
 def start_rows(v, d, r, refactor, rheff, cap, static_diag, leak_j):
-    # rows of the tree system: capacitive and static terms (leak, axial coupling)
-    if refactor:
+    # rows of the tree system: capacitive and static terms (leak, axial coupling);
+    # with LEAK_PER_CAP (a constant of the generated module) leak_j holds one number,
+    # the leak current per capacitance (nA/nF), instead of a current per compartment
+    if LEAK_PER_CAP:
+        j = leak_j[0]
+        if refactor:
+            for i in range(v.size):
+                c = cap[i] * rheff
+                d[i] = c + static_diag[i]
+                r[i] = cap[i] * (rheff * v[i] + j)
+        else:
+            for i in range(v.size):
+                r[i] = cap[i] * (rheff * v[i] + j)
+    elif refactor:
         for i in range(v.size):
             c = cap[i] * rheff
             d[i] = c + static_diag[i]
@@ -619,8 +637,12 @@ def thread_strips(t, v, dt_gate, d, r, refactor, rheff, cap, static_diag, leak_j
     for s in range(tp[t], tp[t + 1]):
         lo = bounds[s]
         hi = bounds[s + 1]
-        start_rows(v[lo:hi], d[lo:hi], r[lo:hi], refactor, rheff, cap[lo:hi],
-                   static_diag[lo:hi], leak_j[lo:hi])
+        if LEAK_PER_CAP:
+            start_rows(v[lo:hi], d[lo:hi], r[lo:hi], refactor, rheff, cap[lo:hi],
+                       static_diag[lo:hi], leak_j)
+        else:
+            start_rows(v[lo:hi], d[lo:hi], r[lo:hi], refactor, rheff, cap[lo:hi],
+                       static_diag[lo:hi], leak_j[lo:hi])
 {block_calls}
 
 
@@ -924,9 +946,10 @@ def run(n_steps, dt, cn_method, smoothing, limit, record_every, lag0, fixed_matr
 '''
 
 
-def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple, uniform: tuple) -> str:
+def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple, uniform: tuple,
+                   per_capacitance: tuple, leak_per_capacitance: bool) -> str:
     """Source of the kernel module for a sequence of channel blocks."""
-    params = "".join(f", x{b}, idx{b}, sp{b}, par{b}, gm{b}, er{b}, phi{b}, tb{b}, tv{b}"
+    params = "".join(f", x{b}, idx{b}, sp{b}, par{b}, gm{b}, gs{b}, er{b}, phi{b}, tb{b}, tv{b}"
                      for b in range(len(channels)))
     calls = []
     for b, c in enumerate(contiguous):
@@ -934,19 +957,23 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple, uniform
         if c:
             # the strip's entries k0 <= k < k1 sit at compartments o + k
             view = f"idx{b}[sp{b}[s]] - sp{b}[s]:idx{b}[sp{b}[s]] - sp{b}[s] + sp{b}[s + 1]"
+            gmax = f"cap[{view}]" if per_capacitance[b] else f"gm{b}"
             calls.append(f"        if sp{b}[s] < sp{b}[s + 1]:\n"
                          f"            block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, "
-                         f"gm{b}, er{b}, celsius, phi{b}, dt_gate, d[{view}], r[{view}], w0, w1, "
+                         f"{gmax}, gs{b}, er{b}, celsius, phi{b}, dt_gate, d[{view}], r[{view}], "
+                         f"w0, w1, "
                          f"wf, wit, vg, gg, tb{b}, tv{b})\n")
         else:
-            calls.append(f"        block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, er{b}, "
+            calls.append(f"        block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, gs{b}, er{b}, "
                          f"celsius, phi{b}, dt_gate, d, r, w0, w1, wf, wit, vg, gg, tb{b}, "
                          f"tv{b})\n")
     calls = "".join(calls)
     head = ("# generated by cabletree.solver.compiled; do not edit\n"
-            "import numba\n\n")
-    blocks = "\n".join(_block_source(b, ch, c, tab, u) for b, (ch, c, tab, u)
-                        in enumerate(zip(channels, contiguous, tabulated, uniform)))
+            "import numba\n\n"
+            f"LEAK_PER_CAP = {bool(leak_per_capacitance)}\n\n")
+    blocks = "\n".join(_block_source(b, ch, c, tab, u, pc) for b, (ch, c, tab, u, pc)
+                        in enumerate(zip(channels, contiguous, tabulated, uniform,
+                                         per_capacitance)))
     return (head + blocks + _KERNEL_TEMPLATE.format(block_params=params, block_args=params,
                                                     block_calls=calls or "        pass\n"))
 
@@ -958,19 +985,23 @@ _NO_TABLE_CONSTANTS = np.zeros(4)
 
 
 def _load_kernel(channels: tuple, contiguous: tuple, threads: int, tabulated: tuple,
-                 uniform: tuple):
+                 uniform: tuple, per_capacitance: tuple, leak_per_capacitance: bool):
     """The compiled ``run`` function for a channel set (built once per process).
 
     ``contiguous[b]`` says whether block ``b``'s entries form one run of
     compartments in every strip,
-    ``tabulated[b]`` whether it reads a rate table instead of its rate functions and
-    ``uniform[b]`` which of its per-compartment values are uniform
-    (see :func:`_block_source`).
+    ``tabulated[b]`` whether it reads a rate table instead of its rate functions,
+    ``uniform[b]`` which of its per-compartment values are uniform and
+    ``per_capacitance[b]`` whether its maximal conductances are read as the
+    capacitances times one ratio (see :func:`_block_source`);
+    ``leak_per_capacitance`` whether the leak current is (see :class:`CompiledStepper`).
     """
-    key = (channels, contiguous, threads, tabulated, uniform)
+    key = (channels, contiguous, threads, tabulated, uniform, per_capacitance,
+           leak_per_capacitance)
     if key in _KERNELS:
         return _KERNELS[key]
-    source = _module_source(channels, contiguous, tabulated, uniform)
+    source = _module_source(channels, contiguous, tabulated, uniform, per_capacitance,
+                            leak_per_capacitance)
     digest = hashlib.sha256()
     digest.update(f"{_CODE_VERSION}|{numba.__version__}|{np.__version__}|{threads}|"
                   f"{EXPONENTIAL_METHOD}|".encode())
@@ -1283,6 +1314,25 @@ def _chunk_bounds(work: np.ndarray, n_chunks: int) -> np.ndarray:
     return np.concatenate([[0], inner, [work.size]]).astype(np.int64)
 
 
+#: Largest relative spread of a block's maximal conductance (or of the leak current)
+#: over capacitance still read as one ratio: the round-off of density x area /
+#: (specific capacitance x area), a few ulp (4.4e-16 measured on the benchmark cells);
+#: the kernel's conductances then differ from the reference backend's by as little.
+GMAX_PER_CAPACITANCE_RTOL = 1e-12
+
+
+def _uniform_ratio(numerator: np.ndarray, denominator: np.ndarray) -> float | None:
+    """``numerator / denominator`` if it is one number to :data:`GMAX_PER_CAPACITANCE_RTOL`
+    (its first element), else None; None for empty arrays or a zero denominator."""
+    if numerator.size == 0 or np.any(denominator <= 0.0):
+        return None
+    ratio = numerator / denominator
+    first = float(ratio[0])
+    if not np.all(np.abs(ratio - first) <= GMAX_PER_CAPACITANCE_RTOL * abs(first)):
+        return None
+    return first
+
+
 #: Fewest compartments per thread for which threads pay off when the tree can be split
 #: (:func:`split_tree`): below it (or for a cell without channels, which has no gate
 #: loops) a two-thread run was measured no faster than one thread, so the kernel runs
@@ -1353,6 +1403,9 @@ class CompiledStepper:
         self.static_diag = leak_g + cell.axial_diagonal_uS[order]
         self.leak_j = leak_g * cell.leak_reversal_mV[order]
         self.cap = np.ascontiguousarray(cell.capacitance_nF[order], dtype=float)
+        # the leak current is one number times the capacitance (nA/nF) for a uniform
+        # leak on a uniform specific capacitance: the kernel then reads no leak array
+        self.leak_per_capacitance = _uniform_ratio(self.leak_j, self.cap)
         self.channels = tuple(b.channel for b in cell.channels)
         # block entries sorted by kernel position; entry_order[b] maps them to the
         # block's own (grid) entry order, in which gate states are stored
@@ -1403,6 +1456,13 @@ class CompiledStepper:
                 np.ascontiguousarray(np.asarray(block.reversal_mV, dtype=float)[e]),
                 float(block.channel.temperature_factor(cell.celsius))))
         self.contiguous = tuple(bs[2] for bs in self.block_static)
+        # maximal conductance (µS) over capacitance (nF) of each block where that
+        # ratio is one number (a uniform density on a uniform specific capacitance)
+        # and the block is contiguous; else 1.0, with the block's own array read
+        self.gmax_per_capacitance = tuple(
+            _uniform_ratio(gm, self.cap[idx]) if contig else None
+            for idx, _, contig, _, gm, _, _ in self.block_static)
+        self.per_capacitance = tuple(r is not None for r in self.gmax_per_capacitance)
         self.uniform = tuple((is_uniform(er), tuple(is_uniform(row) for row in par))
                              for _, _, _, par, _, er, _ in self.block_static)
         # without channels or synapses the matrix changes only with the step size,
@@ -1422,7 +1482,8 @@ class CompiledStepper:
             try:
                 self._kernels[tabulated] = _load_kernel(self.channels, self.contiguous,
                                                         self.kernel_threads, tabulated,
-                                                        self.uniform)
+                                                        self.uniform, self.per_capacitance,
+                                                        self.leak_per_capacitance is not None)
             except SolverError:
                 raise
             except Exception as exc:
@@ -1479,18 +1540,22 @@ class CompiledStepper:
         inj_end = np.ascontiguousarray(sched.injection_end_nA, dtype=float).reshape(sched.n_steps, m)
         inj_comp = np.ascontiguousarray(pos[np.asarray(sched.injection_compartment, dtype=np.int64)])
         block_args = []
-        for x, (idx, split, _, par, gm, er, phi), table in zip(gates, self.block_static, tables):
+        for x, (idx, split, _, par, gm, er, phi), table, ratio in zip(
+                gates, self.block_static, tables, self.gmax_per_capacitance):
             if table is None:
                 tb, tv = _NO_TABLE, _NO_TABLE_CONSTANTS
             else:
                 tb = np.ascontiguousarray(table.values)
                 tv = table.lookup_constants()
-            block_args += [x, idx, split, par, gm, er, phi, tb, tv]
+            block_args += [x, idx, split, par, gm, 1.0 if ratio is None else ratio, er, phi, tb, tv]
         args = (sched.n_steps, float(dt), settings.method == "crank_nicolson",
                 np.ascontiguousarray(sched.smoothing, dtype=np.bool_),
                 float(settings.max_abs_v_mV), int(sched.record_every), float(state.gate_lag_ms),
                 self.fixed_matrix,
-                self.cap, self.static_diag, self.leak_j, self.offdiag, self.parent,
+                self.cap, self.static_diag,
+                self.leak_j if self.leak_per_capacitance is None
+                else np.array([self.leak_per_capacitance]),
+                self.offdiag, self.parent,
                 v, records, rec_idx, inj_comp, inj_mid, inj_end,
                 syn["syn_comp"], syn["syn_kind"], syn["syn_tau_a"], syn["syn_tau_b"],
                 syn["syn_rev"], syn["syn_mg"], syn["syn_weight"], sa, sb,
