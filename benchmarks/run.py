@@ -118,19 +118,35 @@ def make_stepper(cell, backend):
 
 def time_run(cell, backend, n_steps, repeats, dt=0.025):
     """Median seconds per step and tracemalloc peak (MB) of ``n_steps`` steps."""
-    stepper = make_stepper(cell, backend)
+    return time_runs([cell], backend, [n_steps], repeats, dt)[0]
+
+
+def time_runs(cells, backend, n_steps, repeats, dt=0.025):
+    """:func:`time_run` for several cells, their timed runs alternating (cell 1, 2, ...,
+    1, 2, ...) so that a slow or fast moment of the machine falls on all of them
+    alike: their ratios (the scaling with N) are then measured at one moment."""
     table = TABLE_STEP_MV if backend.endswith("+tables") else None
-    warm = RunSettings(2 * dt, dt, rate_table_step_mV=table)
-    state = resting_state(cell, -65.0)
-    idx = np.array([0], dtype=np.int64)
-    stepper.run(warm, make_schedule(cell, warm), state, idx)  # load/compile outside timing
-    settings = RunSettings(n_steps * dt, dt, rate_table_step_mV=table)
-    times = []
+    runs = []
+    for cell, steps in zip(cells, n_steps):
+        stepper = make_stepper(cell, backend)
+        warm = RunSettings(2 * dt, dt, rate_table_step_mV=table)
+        state = resting_state(cell, -65.0)
+        idx = np.array([0], dtype=np.int64)
+        stepper.run(warm, make_schedule(cell, warm), state, idx)  # load/compile outside timing
+        runs.append((cell, stepper, state, idx, RunSettings(steps * dt, dt, rate_table_step_mV=table)))
+    times = [[] for _ in runs]
     for _ in range(repeats):
-        sched = make_schedule(cell, settings)
-        t0 = time.perf_counter()
-        stepper.run(settings, sched, state, idx)
-        times.append(time.perf_counter() - t0)
+        for (cell, stepper, state, idx, settings), elapsed in zip(runs, times):
+            sched = make_schedule(cell, settings)
+            t0 = time.perf_counter()
+            stepper.run(settings, sched, state, idx)
+            elapsed.append(time.perf_counter() - t0)
+    return [_memory_and_median(cell, stepper, state, idx, settings, backend, elapsed, steps)
+            for (cell, stepper, state, idx, settings), elapsed, steps in zip(runs, times, n_steps)]
+
+
+def _memory_and_median(cell, stepper, state, idx, settings, backend, times, n_steps):
+    """(median seconds per step, peak MB of one more run) for :func:`time_runs`."""
     tracemalloc.start()
     stepper.run(settings, make_schedule(cell, settings), state, idx)
     _, peak = tracemalloc.get_traced_memory()
@@ -360,7 +376,7 @@ def main(argv=None):
     args = ap.parse_args(argv)
     quick = args.quick
     sizes = [1000, 10000] if quick else [1000, 10000, 100000]
-    repeats = 3
+    repeats = 3 if quick else 5
     backends = ["reference", "reference+tables"]
     if CompiledStepper is not None:
         backends = ["compiled", "compiled_2threads", "compiled+tables", "reference",
@@ -369,35 +385,40 @@ def main(argv=None):
     kinds = ["passive", "hh", "hh_ka", "hh_ka_ih"]
     if not HAVE_DENDRITIC:
         print("note: A-type/Ih channels not found; cases hh_ka and hh_ka_ih run HH only")
-    cells = []
-    for n in sizes:
-        for kind in kinds:
-            cells.append((f"{kind}_N{n:g}", kind, lambda n=n, kind=kind: generated_cell(n, kind)))
+    # each group is timed together, its cells' runs alternating (time_runs): the
+    # generated cells of one channel set at every size, then each reconstruction
+    groups = [[(f"{kind}_N{n:g}", kind, lambda n=n, kind=kind: generated_cell(n, kind))
+               for n in sizes] for kind in kinds]
     real_kinds = ["hh_ka_ih"] if quick else kinds
-    for kind in real_kinds:
-        cells.append((f"{kind}_real_l5", kind, lambda kind=kind: real_cell(kind)))
-    for case, kind, make in cells:
-        cell = with_drive(make())
-        n = cell.n_compartments
-        row = {}
+    groups += [[(f"{kind}_real_l5", kind, lambda kind=kind: real_cell(kind))]
+               for kind in real_kinds]
+    for group in groups:
+        kind = group[0][1]
+        cells = [(case, with_drive(make())) for case, _, make in group]
         for backend in backends:
             if quick and backend == "compiled_2threads" and kind not in ("hh_ka", "hh_ka_ih"):
                 continue
             if backend.endswith("+tables") and (kind == "passive" or
                                                 (quick and kind != "hh_ka")):
                 continue
-            steps = steps_for(n, backend, quick)
-            sec, mem = time_run(cell, backend, steps, repeats)
-            row[backend] = dict(case=case, backend=backend, n_compartments=n,
-                                cs_per_s=n / sec, peak_mem_mb=mem, s_per_step=sec,
-                                n_steps=steps, ratios={})
-            print(f"  {case:<22} {backend:<18} N={n:<7} {n / sec:10.3g} cs/s  {mem:8.2f} MB",
-                  flush=True)
-        base = row.get("compiled")
-        for rec in row.values():
-            if base is not None:
-                rec["ratios"]["vs_compiled"] = rec["cs_per_s"] / base["cs_per_s"]
-            records.append(rec)
+            steps = [steps_for(cell.n_compartments, backend, quick) for _, cell in cells]
+            timed = time_runs([cell for _, cell in cells], backend, steps, repeats)
+            for (case, cell), n_steps, (sec, mem) in zip(cells, steps, timed):
+                n = cell.n_compartments
+                records.append(dict(case=case, backend=backend, n_compartments=n,
+                                    cs_per_s=n / sec, peak_mem_mb=mem, s_per_step=sec,
+                                    n_steps=n_steps, ratios={}))
+                print(f"  {case:<22} {backend:<18} N={n:<7} {n / sec:10.3g} cs/s  "
+                      f"{mem:8.2f} MB", flush=True)
+    # the table lists cases by size, then channel set, as the groups were built
+    case_order = [case for n in sizes for case in (f"{kind}_N{n:g}" for kind in kinds)]
+    case_order += [f"{kind}_real_l5" for kind in real_kinds]
+    records.sort(key=lambda rec: (case_order.index(rec["case"]), backends.index(rec["backend"])))
+    compiled_speed = {rec["case"]: rec["cs_per_s"] for rec in records
+                      if rec["backend"] == "compiled"}
+    for rec in records:
+        if rec["case"] in compiled_speed:
+            rec["ratios"]["vs_compiled"] = rec["cs_per_s"] / compiled_speed[rec["case"]]
     print("solve_ivp comparison ...", flush=True)
     ivp = ivp_comparison(quick)
     fixed = "compiled" if CompiledStepper else "reference"
