@@ -427,14 +427,18 @@ def main(argv=None):
         rec["ratios"]["vs_solve_ivp_bdf_1000_hh"] = (
             ivp["ivp_s"] / ivp[f"{rec['backend']}_backward_euler_s"]
             if rec["case"].startswith("hh_N1000") and exact_single else None)
-    scaling = {}
+    # time per step at 1e5 over 1e4 as measured, and for exactly 10x the compartments
+    # (the generated cells have 103061 and 10094: a linear cost gives 10.2 and 10)
+    scaling, per_10x = {}, {}
     if not quick:
         for kind in kinds:
             for backend in backends:
                 a = [r for r in records if r["case"] == f"{kind}_N10000" and r["backend"] == backend]
                 b = [r for r in records if r["case"] == f"{kind}_N100000" and r["backend"] == backend]
                 if a and b:
-                    scaling[f"{kind}/{backend}"] = b[0]["s_per_step"] / a[0]["s_per_step"]
+                    key = f"{kind}/{backend}"
+                    scaling[key] = b[0]["s_per_step"] / a[0]["s_per_step"]
+                    per_10x[key] = scaling[key] * 10.0 * a[0]["n_compartments"] / b[0]["n_compartments"]
     print("rate tables against exact rates ...", flush=True)
     tables = table_accuracy(quick, fixed)
     print("cost of one exponential ...", flush=True)
@@ -444,16 +448,17 @@ def main(argv=None):
     meta = dict(cores=os.cpu_count(), machine=platform.processor() or platform.machine(),
                 python=platform.python_version(), quick=quick,
                 load_average=os.getloadavg() if hasattr(os, "getloadavg") else None)
-    print_table(records, ivp, scaling, cold, meta, fixed, exp_cost, tables)
+    print_table(records, ivp, scaling, per_10x, cold, meta, fixed, exp_cost, tables)
     if args.json:
         payload = dict(records=records, solve_ivp=ivp, scaling_1e5_over_1e4=scaling,
+                       scaling_per_10x_n=per_10x,
                        cold_start=cold, exponential_cost=exp_cost, rate_tables=tables,
                        exponentials_per_compartment=EXPONENTIALS_PER_COMPARTMENT, machine=meta)
         args.json.write_text(json.dumps(payload, indent=1, default=float))
     return 0
 
 
-def print_table(records, ivp, scaling, cold, meta, fixed, exp_cost, tables):
+def print_table(records, ivp, scaling, per_10x, cold, meta, fixed, exp_cost, tables):
     print()
     print(f"machine: {meta['cores']} cores, load average {meta['load_average']}")
     print(f"{'case':<22} {'backend':<18} {'N':>7} {'cs/s':>10} {'vs compiled':>11} "
@@ -475,6 +480,8 @@ def print_table(records, ivp, scaling, cold, meta, fixed, exp_cost, tables):
     if scaling:
         print("time per step N=1e5 / N=1e4: " +
               ", ".join(f"{k} {v:.3g}" for k, v in scaling.items()))
+        print("  the same for exactly 10x N (divided by the N ratio, times 10): " +
+              ", ".join(f"{k} {v:.3g}" for k, v in per_10x.items()))
     ceilings = []
     for label, key in (("compiled", "compiled_fast_exp_ns"), ("reference", "numpy_np_exp_ns")):
         if key in exp_cost:
