@@ -214,8 +214,9 @@ def _exponential_method() -> str:
     against the table's 0.53 ns, and HH + A-type 4-6 % faster per step
     (benchmarks/README.md).  The polynomial is chosen for the whole ``znver``
     family, whose vector gathers are microcoded and slow (from memory of
-    published instruction tables; only the Zen 5 was measured).  Both are within 2 ulp of libm and give the same
-    results to far below the kernel's agreement with the reference backend.
+    published instruction tables; only the Zen 5 was measured).  Both are within
+    2 ulp of libm and give the same results to far below the kernel's agreement
+    with the reference backend.
     """
     chosen = os.environ.get("CABLETREE_EXP", "").strip().lower()
     if chosen in ("table", "polynomial"):
@@ -309,8 +310,6 @@ def _exp_special_cases(x, y):
     y = _select(x > 709.0, np.inf, y)
     y = _select(x < -708.0, 0.0, y)
     return _select(x != x, x, y)  # NaN in, NaN out
-
-
 
 
 #: ``exp(x)`` inside compiled rate functions: :func:`exp_by_polynomial` or
@@ -961,8 +960,7 @@ def _module_source(channels: tuple, contiguous: tuple, tabulated: tuple, uniform
             calls.append(f"        if sp{b}[s] < sp{b}[s + 1]:\n"
                          f"            block_{b}(v[{view}], idx{b}, {rng}, x{b}, par{b}, "
                          f"{gmax}, gs{b}, er{b}, celsius, phi{b}, dt_gate, d[{view}], r[{view}], "
-                         f"w0, w1, "
-                         f"wf, wit, vg, gg, tb{b}, tv{b})\n")
+                         f"w0, w1, wf, wit, vg, gg, tb{b}, tv{b})\n")
         else:
             calls.append(f"        block_{b}(v, idx{b}, {rng}, x{b}, par{b}, gm{b}, gs{b}, er{b}, "
                          f"celsius, phi{b}, dt_gate, d, r, w0, w1, wf, wit, vg, gg, tb{b}, "
@@ -1458,7 +1456,7 @@ class CompiledStepper:
         self.contiguous = tuple(bs[2] for bs in self.block_static)
         # maximal conductance (µS) over capacitance (nF) of each block where that
         # ratio is one number (a uniform density on a uniform specific capacitance)
-        # and the block is contiguous; else 1.0, with the block's own array read
+        # and the block is contiguous; else None (the kernel reads the block's array)
         self.gmax_per_capacitance = tuple(
             _uniform_ratio(gm, self.cap[idx]) if contig else None
             for idx, _, contig, _, gm, _, _ in self.block_static)
